@@ -1,0 +1,7 @@
+"""Stage: physics (first version in progress)."""
+
+from __future__ import annotations
+
+from ..declare import Param
+
+PARAMETERS: tuple[Param, ...] = ()
