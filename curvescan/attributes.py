@@ -1,0 +1,74 @@
+"""Carry input attributes onto curves and pieces: source ids and per-row values.
+
+A curve or piece covers a stretch ``[s_start_m, s_end_m]`` of a chain; the input rows it
+lies on are the rows of the chain's vertices in that stretch plus the row of the segment
+at its middle (a short curve may lie between two vertices).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .geometry.resample import global_measure
+
+__all__ = ["rows_on", "src_fid_text", "reduce_rows"]
+
+
+def rows_on(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray):
+    """Input rows each stretch lies on, as flat ``(group, row)`` pairs (unique)."""
+    gm, base = global_measure(chains.measure, chains.offsets)
+    g0 = s0 + base[chain]
+    g1 = s1 + base[chain]
+    i0 = np.searchsorted(gm, g0, side="left")
+    i1 = np.searchsorted(gm, g1, side="right")
+    # the segment containing the middle of the stretch
+    gmid = 0.5 * (g0 + g1)
+    j = np.searchsorted(gm, gmid, side="right") - 1
+    j = np.clip(j, chains.offsets[chain], chains.offsets[chain + 1] - 2)
+    # a segment's row is the row of its second vertex (its first may be a joint)
+    mid_row = chains.vertex_row[j + 1]
+    counts = np.maximum(i1 - i0, 0)
+    grp = np.repeat(np.arange(len(chain)), counts)
+    idx = i0[grp] + (np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts))
+    # a vertex shared by two parts is stored once, with the row of the earlier part;
+    # the row after it starts at the next vertex, which the range also covers
+    groups = np.concatenate([grp, np.arange(len(chain))])
+    rows = np.concatenate([chains.vertex_row[idx], mid_row])
+    pairs = np.unique(np.stack([groups, rows], axis=1), axis=0)
+    return pairs[:, 0], pairs[:, 1]
+
+
+def src_fid_text(groups: np.ndarray, rows: np.ndarray, src_fid: np.ndarray, n: int) -> np.ndarray:
+    """Comma-separated source ids per group, in ascending order."""
+    fids = src_fid[rows]
+    order = np.lexsort((fids, groups))
+    frame = pd.DataFrame({"g": groups[order], "f": fids[order].astype(str)})
+    joined = frame.groupby("g", sort=True)["f"].agg(",".join)
+    out = np.full(n, "", dtype=object)
+    out[joined.index.to_numpy()] = joined.to_numpy()
+    return out
+
+
+def reduce_rows(groups: np.ndarray, rows: np.ndarray, values: np.ndarray, n: int,
+                how: str = "max") -> np.ndarray:
+    """Reduce a numeric per-row value over each group's rows (NaN ignored)."""
+    v = values[rows].astype(float)
+    fill = -np.inf if how == "max" else np.inf
+    out = np.full(n, fill)
+    ufunc = np.maximum if how == "max" else np.minimum
+    ufunc.at(out, groups, np.where(np.isnan(v), fill, v))
+    out[~np.isfinite(out)] = np.nan
+    return out
+
+
+def first_value(groups: np.ndarray, rows: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
+    """The value of the lowest input row of each group (object array, None when absent)."""
+    out = np.full(n, None, dtype=object)
+    order = np.lexsort((rows, groups))
+    g = groups[order]
+    first = np.r_[True, g[1:] != g[:-1]]
+    out[g[first]] = values[rows[order][first]]
+    return out

@@ -1,0 +1,125 @@
+"""Pieces of chains: tangent, transition and circular parts, and their line geometry."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import shapely
+
+from .resample import global_measure, interpolate
+
+__all__ = ["resolve_overlaps", "piece_table", "substrings"]
+
+
+def resolve_overlaps(curves: pd.DataFrame) -> pd.DataFrame:
+    """Order curves along chains and make neighbouring curves meet, never overlap.
+
+    Where the transition out of one curve runs into the transition into the next, both
+    are cut at the middle of the gap between their circular parts.
+    """
+    curves = curves.sort_values(["chain_id", "circ_start_m"]).reset_index(drop=True)
+    if len(curves) < 2:
+        return curves
+    same = curves["chain_id"].to_numpy()[1:] == curves["chain_id"].to_numpy()[:-1]
+    end_prev = curves["s_end_m"].to_numpy()[:-1]
+    start_next = curves["s_start_m"].to_numpy()[1:]
+    clash = same & (end_prev > start_next)
+    mid = 0.5 * (curves["circ_end_m"].to_numpy()[:-1] + curves["circ_start_m"].to_numpy()[1:])
+    if clash.any():
+        ends = curves["s_end_m"].to_numpy().copy()
+        starts = curves["s_start_m"].to_numpy().copy()
+        circ_end = curves["circ_end_m"].to_numpy().copy()
+        circ_start = curves["circ_start_m"].to_numpy().copy()
+        i = np.flatnonzero(clash)
+        ends[i] = np.maximum(mid[i], circ_end[i])
+        starts[i + 1] = np.minimum(np.maximum(mid[i], ends[i]), np.maximum(circ_start[i + 1], ends[i]))
+        circ_start[i + 1] = np.maximum(circ_start[i + 1], starts[i + 1])
+        curves["s_end_m"], curves["s_start_m"] = ends, starts
+        curves["circ_start_m"] = circ_start
+        curves["length_m"] = curves["s_end_m"] - curves["s_start_m"]
+        curves["circular_length_m"] = curves["circ_end_m"] - curves["circ_start_m"]
+        curves["transition_in_m"] = curves["circ_start_m"] - curves["s_start_m"]
+        curves["transition_out_m"] = curves["s_end_m"] - curves["circ_end_m"]
+    return curves
+
+
+def piece_table(chains: Any, curves: pd.DataFrame) -> pd.DataFrame:
+    """Every chain cut into ``tangent``, ``transition`` and ``curve`` pieces.
+
+    Returns a frame with ``chain_id``, ``kind``, ``s_start_m``, ``s_end_m``, ``curve_id``
+    (0 for tangents) and ``radius_m`` (NaN for tangents and transitions), ordered along
+    each chain. Pieces shorter than 1 mm are left out.
+    """
+    n_chains = chains.n_chains
+    lengths = chains.lengths
+    c = curves
+    parts = [
+        pd.DataFrame({"chain_id": c["chain_id"], "kind": "transition",
+                      "s_start_m": c["s_start_m"], "s_end_m": c["circ_start_m"],
+                      "curve_id": c["curve_id"], "radius_m": np.nan}),
+        pd.DataFrame({"chain_id": c["chain_id"], "kind": "curve",
+                      "s_start_m": c["circ_start_m"], "s_end_m": c["circ_end_m"],
+                      "curve_id": c["curve_id"], "radius_m": c["radius_m"]}),
+        pd.DataFrame({"chain_id": c["chain_id"], "kind": "transition",
+                      "s_start_m": c["circ_end_m"], "s_end_m": c["s_end_m"],
+                      "curve_id": c["curve_id"], "radius_m": np.nan}),
+    ]
+    # tangents: the gaps between consecutive curves of a chain
+    cs = c.sort_values(["chain_id", "s_start_m"])
+    chain_ids = cs["chain_id"].to_numpy()
+    gap_chain = np.concatenate([np.arange(n_chains), chain_ids])
+    gap_start = np.concatenate([np.zeros(n_chains), cs["s_end_m"].to_numpy()])
+    order = np.lexsort((gap_start, gap_chain))
+    gap_chain, gap_start = gap_chain[order], gap_start[order]
+    nxt_same = np.r_[gap_chain[1:] == gap_chain[:-1], False]
+    next_start = np.concatenate([cs["s_start_m"].to_numpy(), [np.nan]])
+    # the curve following each gap start: curves sorted, so index by running count
+    curve_pos = np.cumsum(np.r_[False, nxt_same[:-1]] if len(nxt_same) else [])
+    gap_end = np.where(nxt_same, np.nan, lengths[gap_chain])
+    k = np.flatnonzero(nxt_same)
+    # gap k ends where the curve that starts the next gap entry begins
+    gap_end[k] = _curve_starts_after(cs, gap_chain[k], gap_start[k])
+    del curve_pos, next_start
+    parts.append(pd.DataFrame({"chain_id": gap_chain, "kind": "tangent", "s_start_m": gap_start,
+                               "s_end_m": gap_end, "curve_id": 0, "radius_m": np.nan}))
+    table = pd.concat(parts, ignore_index=True)
+    table = table[(table["s_end_m"] - table["s_start_m"]) > 1e-3]
+    table = table.sort_values(["chain_id", "s_start_m"], kind="stable").reset_index(drop=True)
+    table["length_m"] = table["s_end_m"] - table["s_start_m"]
+    return table
+
+
+def _curve_starts_after(cs: pd.DataFrame, chain: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """Start of the first curve on ``chain`` starting at or after ``s``."""
+    key_c = cs["chain_id"].to_numpy().astype(float)
+    key_s = cs["s_start_m"].to_numpy()
+    big = 1e12
+    keys = key_c * big + key_s
+    q = chain.astype(float) * big + s - 1e-6
+    j = np.searchsorted(keys, q, side="left")
+    return key_s[np.minimum(j, len(key_s) - 1)]
+
+
+def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray) -> np.ndarray:
+    """LineStrings along ``chain`` from measure ``s0`` to ``s1`` (vectorised)."""
+    if len(chain) == 0:
+        return np.array([], dtype=object)
+    gm, base = global_measure(chains.measure, chains.offsets)
+    g0 = s0 + base[chain]
+    g1 = np.maximum(s1, s0) + base[chain]
+    i0 = np.searchsorted(gm, g0, side="right")
+    i1 = np.searchsorted(gm, g1, side="left")
+    inner = np.maximum(i1 - i0, 0)
+    count = inner + 2
+    grp = np.repeat(np.arange(len(chain)), count)
+    pos = np.arange(count.sum()) - np.repeat(np.cumsum(count) - count, count)
+    xy = np.empty((count.sum(), 2))
+    is_first = pos == 0
+    is_last = pos == count[grp] - 1
+    mid = ~(is_first | is_last)
+    xy[is_first] = interpolate(chains.coords, gm, chains.offsets, chain, g0)
+    xy[is_last] = interpolate(chains.coords, gm, chains.offsets, chain, g1)
+    xy[mid] = chains.coords[i0[grp[mid]] + pos[mid] - 1]
+    return shapely.linestrings(xy, indices=grp)

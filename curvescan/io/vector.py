@@ -1,0 +1,177 @@
+"""Vector input and output: the only module that talks to pyogrio.
+
+Reading uses pyogrio with Arrow; writing goes to a temporary file next to the target and
+is moved into place only when complete, so a failed run never destroys a good output.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+import warnings
+from pathlib import Path
+from typing import Mapping
+
+import geopandas as gpd
+import pandas as pd
+import pyogrio
+from pyogrio.errors import DataLayerError, DataSourceError as _PyogrioSourceError
+
+from ..errors import DataQualityWarning, DataSourceError, InputError, OutputExistsError
+
+__all__ = ["read_layer", "list_line_layers", "write_layers", "check_output_path"]
+
+#: GPX layers that hold lines, in order of preference.
+_GPX_LINE_LAYERS = ("tracks", "routes")
+
+
+def _is_gpx(path: str) -> bool:
+    return str(path).lower().endswith(".gpx")
+
+
+def list_line_layers(path: str) -> list[str]:
+    """Return the names of the layers in ``path`` whose geometry type is a line type."""
+    try:
+        layers = pyogrio.list_layers(path)
+    except (_PyogrioSourceError, OSError) as exc:
+        raise DataSourceError(_first_line(f"cannot open {path}: {exc}")) from None
+    return [str(name) for name, gtype in layers if gtype is None or "Line" in str(gtype)]
+
+
+def _choose_layer(path: str, layer: str | None) -> str | None:
+    try:
+        layers = pyogrio.list_layers(path)
+    except (_PyogrioSourceError, OSError) as exc:
+        raise DataSourceError(_first_line(f"cannot open {path}: {exc}")) from None
+    names = [str(n) for n, _ in layers]
+    if layer is not None:
+        if layer not in names:
+            raise InputError(f"layer {layer!r} not found in {path}; layers: {', '.join(names)}")
+        return layer
+    if _is_gpx(path):
+        for name in _GPX_LINE_LAYERS:
+            if name in names and pyogrio.read_info(path, layer=name)["features"] > 0:
+                return name
+        raise InputError(f"{path} has no tracks or routes (GPX waypoints are not lines)")
+    lines = [str(n) for n, g in layers if g is not None and "Line" in str(g)]
+    if len(names) == 1:
+        return names[0]
+    if len(lines) == 1:
+        return lines[0]
+    if not lines:
+        raise InputError(f"{path} has no line layer; layers: {', '.join(names)}")
+    warnings.warn(
+        f"{path} has several line layers ({', '.join(lines)}); reading {lines[0]!r} "
+        "(choose with --layer)",
+        DataQualityWarning,
+        stacklevel=3,
+    )
+    return lines[0]
+
+
+def read_layer(path: str | os.PathLike, /, layer: str | None = None) -> gpd.GeoDataFrame:
+    """Read one vector layer into a GeoDataFrame with a ``src_fid`` column.
+
+    Parameters
+    ----------
+    path : str or path-like
+        Any file or folder pyogrio reads: GeoPackage, GeoParquet, Shapefile, GeoJSON,
+        FlatGeobuf, GPX (tracks, else routes).
+    layer : str, optional
+        Layer name; by default the only layer, or the only line layer.
+
+    Returns
+    -------
+    GeoDataFrame
+        The features in file order; ``src_fid`` holds the source feature id (the
+        GeoPackage/Shapefile FID, else the 0-based row number).
+
+    Raises
+    ------
+    DataSourceError
+        The path does not exist or cannot be read.
+    InputError
+        The layer does not exist, or the source has no line layer.
+    """
+    path = str(path)
+    if not os.path.exists(path) and "://" not in path and not path.startswith("/vsi"):
+        raise DataSourceError(f"input not found: {path}")
+    if path.lower().endswith((".parquet", ".geoparquet")) or (
+        os.path.isdir(path) and any(p.suffix == ".parquet" for p in Path(path).glob("*.parquet"))
+    ):
+        return _read_parquet(path)
+    chosen = _choose_layer(path, layer)
+    try:
+        frame = pyogrio.read_dataframe(path, layer=chosen, use_arrow=True, fid_as_index=True)
+    except (_PyogrioSourceError, DataLayerError, OSError) as exc:
+        raise DataSourceError(_first_line(f"cannot read {path}: {exc}")) from None
+    frame.index.name = None
+    frame.insert(0, "src_fid", frame.index.to_numpy(dtype="int64"))
+    return frame.reset_index(drop=True)
+
+
+def _read_parquet(path: str) -> gpd.GeoDataFrame:
+    try:
+        frame = gpd.read_parquet(path)
+    except (ValueError, OSError) as exc:
+        raise DataSourceError(_first_line(f"cannot read GeoParquet {path}: {exc}")) from None
+    frame = frame.reset_index(drop=True)
+    if "src_fid" not in frame.columns:
+        frame.insert(0, "src_fid", pd.RangeIndex(len(frame)).to_numpy(dtype="int64"))
+    return frame
+
+
+def check_output_path(path: str | os.PathLike, overwrite: bool) -> Path:
+    """Refuse an existing output without ``overwrite`` and a folder that cannot be written."""
+    target = Path(path)
+    if target.exists() and not overwrite:
+        raise OutputExistsError(f"output exists: {target} (use --overwrite to replace it)")
+    folder = target.parent if str(target.parent) else Path(".")
+    if not folder.is_dir():
+        raise DataSourceError(f"output folder does not exist: {folder}")
+    if not os.access(folder, os.W_OK):
+        raise DataSourceError(f"output folder is not writable: {folder}")
+    return target
+
+
+def write_layers(
+    path: str | os.PathLike,
+    layers: Mapping[str, pd.DataFrame],
+    *,
+    overwrite: bool = False,
+    layer_metadata: Mapping[str, Mapping[str, str]] | None = None,
+) -> Path:
+    """Write several layers into one GeoPackage, atomically.
+
+    Layers are written in the given order to a temporary file in the target's folder,
+    which then replaces the target in one rename. Frames without geometry become
+    attribute tables.
+    """
+    target = check_output_path(path, overwrite)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part.gpkg", dir=target.parent)
+    os.close(fd)
+    os.unlink(tmp)
+    try:
+        for name, frame in layers.items():
+            meta = dict((layer_metadata or {}).get(name, {}))
+            kwargs = {"layer": name, "driver": "GPKG", "append": os.path.exists(tmp)}
+            if meta:
+                kwargs["layer_metadata"] = meta
+            if isinstance(frame, gpd.GeoDataFrame):
+                pyogrio.write_dataframe(frame, tmp, use_arrow=True, **kwargs)
+            else:
+                pyogrio.write_dataframe(
+                    pd.DataFrame(frame), tmp, use_arrow=True, **kwargs
+                )
+        os.replace(tmp, target)
+    except Exception as exc:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        if isinstance(exc, (_PyogrioSourceError, DataLayerError, OSError)):
+            raise DataSourceError(_first_line(f"cannot write {target}: {exc}")) from None
+        raise
+    return target
+
+
+def _first_line(text: str) -> str:
+    return text.strip().splitlines()[0] if text.strip() else text

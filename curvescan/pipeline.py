@@ -1,0 +1,263 @@
+"""The scan pipeline: read -> prepare -> geometry -> terrain -> physics -> assess -> export.
+
+:func:`scan` runs every stage in memory and returns a :class:`ScanResult` holding the
+output layers as GeoDataFrames; :meth:`ScanResult.to_gpkg` writes them.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import time
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+
+from . import assess, physics, terrain
+from ._version import __version__
+from .attributes import first_value, reduce_rows, rows_on, src_fid_text
+from .cautions import CAUTION
+from .config import SCAN_PARAMETERS, make_config
+from .errors import DataQualityWarning, InputError
+from .export import CONTRACT_FIELDS, order_columns, run_table, to_output_crs, write_gpkg
+from .geometry import find_curves
+from .geometry.pieces import substrings
+from .prepare import prepare
+from .read import load
+from .speeds import parse_speeds
+
+__all__ = ["scan", "ScanResult"]
+
+log = logging.getLogger(__name__)
+
+Progress = Callable[[str, float], None]
+
+
+@dataclass
+class ScanResult:
+    """The layers of one scan.
+
+    Attributes
+    ----------
+    curves, segments, hazards : GeoDataFrame
+        The output layers (DESIGN.md section 4), in the output CRS.
+    run : dict
+        The run record (version, inputs, CRS, parameters, friction, counts, warnings,
+        skipped input rows, cautions).
+    extra : dict of str to DataFrame
+        Further layers written after the contract layers (e.g. ``winter``).
+    """
+
+    curves: gpd.GeoDataFrame
+    segments: gpd.GeoDataFrame
+    hazards: gpd.GeoDataFrame
+    run: dict[str, Any]
+    extra: dict[str, pd.DataFrame] = field(default_factory=dict)
+    descriptions: dict[str, str] = field(default_factory=dict)
+
+    def layers(self) -> dict[str, pd.DataFrame]:
+        """All layers in write order, the run record as a one-row table last."""
+        out: dict[str, pd.DataFrame] = {"curves": self.curves, "segments": self.segments,
+                                        "hazards": self.hazards}
+        out.update(self.extra)
+        out["run"] = run_table(self.run)
+        return out
+
+    def layer_descriptions(self) -> dict[str, str]:
+        """A one-line description per layer, stored in the GeoPackage metadata."""
+        base = {
+            "curves": "Horizontal curves found, one row per curve. " + CAUTION,
+            "segments": "Every chain cut into tangent, transition and curve pieces.",
+            "hazards": "Curves whose posted speed exceeds a computed limit. " + CAUTION,
+            "run": "Record of the run: inputs, parameters, friction, counts, warnings.",
+        }
+        base.update(self.descriptions)
+        return base
+
+    def to_gpkg(self, path: str | os.PathLike, *, overwrite: bool = False) -> Path:
+        """Write all layers to one GeoPackage (atomically); return its path."""
+        return write_gpkg(self, path, overwrite=overwrite)
+
+
+def scan(source: Any, *, dem: str | os.PathLike | None = None,
+         progress: Progress | None = None, **parameters: Any) -> ScanResult:
+    """Find and assess every horizontal curve of a road layer.
+
+    Parameters
+    ----------
+    source : path or GeoDataFrame
+        The road centreline layer (GeoPackage, GeoParquet, Shapefile, GeoJSON, FlatGeobuf,
+        GPX tracks or routes) or a GeoDataFrame with a CRS.
+    dem : path, optional
+        A DEM raster for superelevation and grade.
+    progress : callable, optional
+        Called as ``progress(stage_name, fraction_done)``.
+    **parameters
+        Any declared parameter (see ``curvescan scan --help`` or
+        :data:`curvescan.config.SCAN_PARAMETERS`), e.g. ``speed_field="maxspeed"``.
+
+    Returns
+    -------
+    ScanResult
+
+    Raises
+    ------
+    curvescan.errors.CurvescanError
+        For unusable input (with a one-line message).
+    """
+    config = parameters.pop("config", None)
+    config = make_config(config, **parameters)
+    report = progress or (lambda stage, frac: None)
+    timings: dict[str, float] = {}
+    t0 = time.perf_counter()
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        frame = _timed(timings, "read", lambda: load(source, config))
+        report("read", 0.1)
+        _check_fields(frame, config)
+        chains = _timed(timings, "prepare", lambda: prepare(frame, config))
+        report("prepare", 0.25)
+        geo = _timed(timings, "geometry", lambda: find_curves(chains, config))
+        report("geometry", 0.5)
+        curves = geo.curves
+        curves.attrs["crs"] = chains.crs.to_wkt()
+        speed_report = _attach_attributes(curves, frame, chains, config)
+        ter = _timed(timings, "terrain",
+                     lambda: terrain.evaluate(curves, geo.stations, config,
+                                              None if dem is None else str(dem)))
+        curves = curves.join(ter.drop(columns=[c for c in ter.columns if c in curves.columns]))
+        report("terrain", 0.65)
+        phys = _timed(timings, "physics", lambda: physics.evaluate(curves, config))
+        curves = curves.join(phys.drop(columns=[c for c in phys.columns if c in curves.columns]))
+        report("physics", 0.8)
+        layers = _timed(timings, "assess",
+                        lambda: _layers(curves, geo.segments, chains, frame, config))
+        report("assess", 0.95)
+    messages = []
+    for w in caught:
+        messages.append(f"{w.category.__name__}: {w.message}")
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    timings["total"] = time.perf_counter() - t0
+    curves_l, segments_l, hazards_l = layers
+    run = _run_record(source, dem, config, chains, frame, curves_l, hazards_l, segments_l,
+                      speed_report, messages, timings)
+    return ScanResult(curves=curves_l, segments=segments_l, hazards=hazards_l, run=run)
+
+
+def _timed(timings: dict, name: str, fn: Callable[[], Any]) -> Any:
+    t = time.perf_counter()
+    out = fn()
+    timings[name] = round(time.perf_counter() - t, 4)
+    log.debug("%s took %.3f s", name, timings[name])
+    return out
+
+
+def _check_fields(frame: gpd.GeoDataFrame, config: Any) -> None:
+    """Refuse a field the user named that the layer does not have (list those it has).
+
+    A field parameter left at a non-empty default (such as ``lanes``) is used only where
+    the layer has it.
+    """
+    names = [c for c in frame.columns if c != frame.geometry.name]
+    for p in SCAN_PARAMETERS:
+        if p.kind != "field":
+            continue
+        value = getattr(config, p.name, None)
+        if value is not None and value not in frame.columns and value != p.default:
+            flag = p.flag
+            raise InputError(f"{flag}: field {value!r} not found; fields: {', '.join(map(str, names))}")
+
+
+def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, chains: Any,
+                       config: Any) -> dict:
+    """Add ``src_fids``, ``posted_kmh`` and raw attribute columns to ``curves`` in place."""
+    n = len(curves)
+    chain = curves["chain_id"].to_numpy()
+    groups, rows = rows_on(chains, chain, curves["s_start_m"].to_numpy(),
+                           curves["s_end_m"].to_numpy())
+    src = frame["src_fid"].to_numpy()
+    curves.insert(1, "src_fids", src_fid_text(groups, rows, src, n))
+    report: dict[str, Any] = {"field": config.speed_field}
+    if config.speed_field is not None:
+        speeds, report = parse_speeds(frame[config.speed_field], config.speed_unit)
+        report["field"] = config.speed_field
+        if report["unparsed"]:
+            warnings.warn(
+                f"{report['unparsed']} posted-speed values in {config.speed_field!r} could not "
+                f"be parsed (kept as unknown), e.g. {', '.join(report['unparsed_examples'][:3])}",
+                DataQualityWarning, stacklevel=3)
+        curves["posted_kmh"] = reduce_rows(groups, rows, speeds, n, how="max")
+    else:
+        curves["posted_kmh"] = np.nan
+    for attr, param in (("attr_superelevation", "superelevation_field"),
+                        ("attr_lanes", "lanes_field"), ("attr_width_m", "width_field")):
+        name = getattr(config, param, None)
+        if name is not None and name in frame.columns:
+            curves[attr] = first_value(groups, rows, frame[name].to_numpy(dtype=object), n)
+    return report
+
+
+def _layers(curves: pd.DataFrame, segments: pd.DataFrame, chains: Any,
+            frame: gpd.GeoDataFrame, config: Any):
+    crs = chains.crs
+    geom = substrings(chains, curves["chain_id"].to_numpy(), curves["s_start_m"].to_numpy(),
+                      curves["s_end_m"].to_numpy())
+    curves_g = gpd.GeoDataFrame(curves, geometry=geom, crs=crs)
+    hz = assess.hazards(curves_g, config)
+    hz = gpd.GeoDataFrame(hz, geometry="geometry", crs=crs)
+    seg_chain = segments["chain_id"].to_numpy()
+    g, r = rows_on(chains, seg_chain, segments["s_start_m"].to_numpy(),
+                   segments["s_end_m"].to_numpy())
+    segments = segments.copy()
+    segments.insert(0, "segment_id", np.arange(1, len(segments) + 1, dtype=np.int64))
+    segments["src_fids"] = src_fid_text(g, r, frame["src_fid"].to_numpy(), len(segments))
+    sgeom = substrings(chains, seg_chain, segments["s_start_m"].to_numpy(),
+                       segments["s_end_m"].to_numpy())
+    segments_g = gpd.GeoDataFrame(segments, geometry=sgeom, crs=crs)
+    out = []
+    for layer in (curves_g, segments_g, hz):
+        layer = layer.drop(columns=[c for c in layer.columns if c.startswith("attr_")])
+        layer = to_output_crs(layer, frame.crs, config.output_crs)
+        out.append(order_columns(layer, CONTRACT_FIELDS))
+    return tuple(out)
+
+
+def _run_record(source, dem, config, chains, frame, curves, hazards, segments, speed_report,
+                messages, timings) -> dict[str, Any]:
+    covered = set()
+    for text in segments["src_fids"]:
+        covered.update(int(t) for t in str(text).split(",") if t)
+    skipped = list(chains.skipped)
+    skipped_ids = {s["src_fid"] for s in skipped}
+    lost = sorted(set(frame["src_fid"].astype(int)) - covered - skipped_ids)
+    for fid in lost:  # should not happen; recorded rather than silent
+        skipped.append({"src_fid": fid, "reason": "not covered by any segment"})
+    return {
+        "curvescan_version": __version__,
+        "created_utc": pd.Timestamp.now(tz="UTC").isoformat(timespec="seconds"),
+        "input": str(source) if not isinstance(source, gpd.GeoDataFrame) else "GeoDataFrame",
+        "input_layer": config.layer,
+        "input_crs": frame.crs.to_string() if frame.crs is not None else None,
+        "working_crs": chains.crs.to_wkt(),
+        "dem": None if dem is None else str(dem),
+        "parameters": config.as_dict(),
+        "physics": physics.run_record(config),
+        "terrain": terrain.run_record(curves) if hasattr(terrain, "run_record") else {},
+        "input_features": int(len(frame)),
+        "chains": int(chains.n_chains),
+        "curves": int(len(curves)),
+        "hazards": int(len(hazards)),
+        "segments": int(len(segments)),
+        "skipped_features": int(len(skipped)),
+        "skipped": skipped,
+        "posted_speed": speed_report,
+        "notes": chains.notes,
+        "warnings": messages,
+        "timings_s": timings,
+        "caution": CAUTION,
+    }
