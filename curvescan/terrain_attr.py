@@ -1,0 +1,231 @@
+"""Terrain helpers: superelevation, lane and width attributes, and the stated assumptions.
+
+Pure functions over arrays; used by :mod:`curvescan.terrain`.
+"""
+
+from __future__ import annotations
+
+import re
+import warnings
+from typing import Any
+
+import numpy as np
+
+from .errors import AssumptionWarning, DataQualityWarning
+
+__all__ = [
+    "MAX_PLAUSIBLE_SUPERELEVATION",
+    "parse_superelevation",
+    "parse_number",
+    "design_superelevation",
+    "assume_superelevation",
+    "AASHTO_FMAX_KMH",
+]
+
+#: Largest superelevation magnitude accepted as real (fraction). Design maxima stop at about
+#: 0.12 (AASHTO e_max tables go up to 12 %, REFERENCES.md 1c/1e); 0.20 leaves room for
+#: steep local roads. It is also the percent/fraction boundary of the ``auto`` rule.
+MAX_PLAUSIBLE_SUPERELEVATION = 0.20
+
+#: Maximum side friction for design by design speed (km/h -> f_max), AASHTO Green Book
+#: 2011 (6th ed.) Table 3-7, metric row as given in REFERENCES.md 1b (20/40/60/80/100/120
+#: km/h are V-2nd, the other columns from memory).
+AASHTO_FMAX_KMH = (
+    np.array([15, 20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130], dtype=float),
+    np.array([0.40, 0.35, 0.28, 0.23, 0.19, 0.17, 0.15, 0.14, 0.13, 0.12, 0.11, 0.09, 0.08]),
+)
+
+_NUMBER = re.compile(r"[-+]?\d+(?:[.,]\d+)?|[-+]?[.,]\d+")
+_EMPTY = {"", "nan", "none", "null", "na", "n/a", "-"}
+
+
+def _text(v: Any) -> str | None:
+    if v is None:
+        return None
+    if isinstance(v, float) and np.isnan(v):
+        return None
+    s = str(v).strip()
+    return None if s.lower() in _EMPTY else s
+
+
+def parse_number(values: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Read the first number of each value (``"7,5 m"`` gives 7.5; ``"2;3"`` gives 2).
+
+    Returns
+    -------
+    number : ndarray of float
+        NaN where missing or unreadable.
+    percent : ndarray of bool
+        The value carried a ``%`` sign.
+    bad : ndarray of bool
+        A non-empty value without a number.
+    """
+    vals = list(values)
+    number = np.full(len(vals), np.nan)
+    percent = np.zeros(len(vals), dtype=bool)
+    bad = np.zeros(len(vals), dtype=bool)
+    for i, v in enumerate(vals):  # attribute text: one pass over raw strings, not a hot path
+        if isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool):
+            number[i] = float(v)
+            continue
+        s = _text(v)
+        if s is None:
+            continue
+        m = _NUMBER.search(s)
+        if m is None:
+            bad[i] = True
+            continue
+        number[i] = float(m.group(0).replace(",", "."))
+        percent[i] = "%" in s
+    return number, percent, bad
+
+
+def parse_superelevation(values: Any, unit: str = "auto") -> np.ndarray:
+    """Convert raw superelevation attribute values to fractions.
+
+    Rule: a value written with ``%`` is a percentage. Bare numbers follow ``unit``:
+    ``percent`` or ``fraction`` as told; ``auto`` decides once for the whole field: if any
+    bare magnitude exceeds :data:`MAX_PLAUSIBLE_SUPERELEVATION` (0.20) the field is in
+    percent, otherwise in fractions. An :class:`AssumptionWarning` is raised when ``auto``
+    reads the field as percent but it also holds bare non-zero values below 1 (which would
+    mean less than 1 %, and look like fractions mixed in). Values whose magnitude exceeds
+    0.20 after conversion, and unreadable text, become NaN with a counted
+    :class:`DataQualityWarning`.
+
+    Parameters
+    ----------
+    values : sequence
+        Raw values (numbers, strings such as ``"6%"``, ``"0.06"``, ``"6"``, or None).
+    unit : {"auto", "percent", "fraction"}
+        How bare numbers are read.
+
+    Returns
+    -------
+    ndarray of float
+        Superelevation as fractions, positive toward the curve centre; NaN where unknown.
+    """
+    number, percent, bad = parse_number(values)
+    bare = np.isfinite(number) & ~percent
+    if unit == "percent":
+        bare_pct = True
+    elif unit == "fraction":
+        bare_pct = False
+    else:
+        mags = np.abs(number[bare])
+        bare_pct = bool(mags.size and mags.max() > MAX_PLAUSIBLE_SUPERELEVATION)
+        small = int(((mags > 0) & (mags < 1)).sum()) if bare_pct else 0
+        if small:
+            warnings.warn(
+                f"superelevation field read as percent (values above "
+                f"{MAX_PLAUSIBLE_SUPERELEVATION}), but {small} bare value(s) below 1 look like "
+                "fractions; they were read as percent too. Set the superelevation unit "
+                "explicitly or write values with '%'",
+                AssumptionWarning,
+                stacklevel=3,
+            )
+    e = np.where(percent | (bare & bare_pct), number / 100.0, number)
+    implausible = np.isfinite(e) & (np.abs(e) > MAX_PLAUSIBLE_SUPERELEVATION)
+    if implausible.any() or bad.any():
+        warnings.warn(
+            f"superelevation field: {int(bad.sum())} unreadable value(s) and "
+            f"{int(implausible.sum())} value(s) beyond ±{MAX_PLAUSIBLE_SUPERELEVATION:.2f} "
+            "were ignored (terrain or the assumption used there instead)",
+            DataQualityWarning,
+            stacklevel=3,
+        )
+    return np.where(implausible, np.nan, e)
+
+
+def design_superelevation(
+    radius_m: np.ndarray, speed_kmh: np.ndarray, e_max: float
+) -> np.ndarray:
+    """Design superelevation from speed and radius, AASHTO distribution method 1.
+
+    Method 1 of the AASHTO Green Book (2011, 6th ed., section 3.3.6; from memory) makes
+    superelevation proportional to curvature: ``e = e_max * R_min / R``, capped at
+    ``e_max``, with ``R_min = V^2 / (127 (e_max + f_max))`` and ``f_max`` from Table 3-7
+    (:data:`AASHTO_FMAX_KMH`, interpolated, clamped to the table's speed range). Method 1
+    gives less superelevation on mid-range curves than the tabulated method 5, so it errs
+    toward lower limit speeds. The posted speed stands in for the design speed.
+
+    Parameters
+    ----------
+    radius_m : ndarray
+        Radius of the circular part (m).
+    speed_kmh : ndarray
+        Speed (km/h); NaN gives NaN.
+    e_max : float
+        Maximum superelevation rate (fraction).
+
+    Returns
+    -------
+    ndarray of float
+        Design superelevation (fraction).
+    """
+    v = np.asarray(speed_kmh, dtype=float)
+    f_max = np.interp(v, *AASHTO_FMAX_KMH)
+    r_min = v**2 / (127.0 * (e_max + f_max))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        e = e_max * r_min / np.asarray(radius_m, dtype=float)
+    return np.minimum(e, e_max)
+
+
+def assume_superelevation(
+    mode: str,
+    radius_m: np.ndarray,
+    posted_kmh: np.ndarray,
+    *,
+    crown: float,
+    e_max: float,
+    value: float | None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per-lane superelevation under a stated assumption.
+
+    Parameters
+    ----------
+    mode : {"crown", "design", "zero", "value"}
+        ``crown``: normal crown kept through the curve, inner lane ``+crown``, outer lane
+        ``-crown`` (adverse); ``design``: :func:`design_superelevation` from posted speed and
+        radius (a design value below the crown keeps the crown; unknown posted speed falls
+        back to ``crown`` with a counted warning); ``zero``: flat; ``value``: ``value`` on
+        both lanes.
+    radius_m, posted_kmh : ndarray
+        Per curve.
+    crown : float
+        Normal crown slope (fraction, positive).
+    e_max : float
+        Maximum superelevation for ``design``.
+    value : float or None
+        Superelevation for ``value``.
+
+    Returns
+    -------
+    inner, outer : ndarray of float
+        Lane slopes (fraction, positive toward the centre).
+    applied : ndarray of str
+        Mode applied per curve.
+    """
+    n = len(radius_m)
+    inner = np.full(n, crown)
+    outer = np.full(n, -crown)
+    applied = np.full(n, "crown", dtype=object)
+    if mode == "zero":
+        inner[:] = outer[:] = 0.0
+        applied[:] = "zero"
+    elif mode == "value":
+        inner[:] = outer[:] = float(value if value is not None else 0.0)
+        applied[:] = "value"
+    elif mode == "design":
+        e_d = design_superelevation(radius_m, posted_kmh, e_max)
+        known = np.isfinite(e_d)
+        banked = known & (e_d >= crown)
+        inner[banked] = outer[banked] = e_d[banked]
+        applied[known] = "design"
+        if (~known).any():
+            warnings.warn(
+                f"design superelevation needs the posted speed: unknown for "
+                f"{int((~known).sum())} of {n} curve(s), normal crown assumed there",
+                AssumptionWarning,
+                stacklevel=3,
+            )
+    return inner, outer, applied

@@ -1,0 +1,81 @@
+"""Superelevation attribute parsing (percent versus fraction) and the stated assumptions."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from curvescan.errors import AssumptionWarning, DataQualityWarning
+from curvescan.terrain_attr import (
+    assume_superelevation,
+    design_superelevation,
+    parse_number,
+    parse_superelevation,
+)
+
+
+def test_percent_sign_always_means_percent():
+    got = parse_superelevation(["6%", "4 %", "6,5 %", "-2%", None, ""])
+    np.testing.assert_allclose(got, [0.06, 0.04, 0.065, -0.02, np.nan, np.nan])
+
+
+def test_bare_fractions_stay_fractions():
+    np.testing.assert_allclose(parse_superelevation([0.06, "0.04", 0.1]), [0.06, 0.04, 0.1])
+
+
+def test_bare_percent_numbers_become_fractions():
+    np.testing.assert_allclose(parse_superelevation([6, "4", 8.0, 0]), [0.06, 0.04, 0.08, 0.0])
+
+
+def test_mixed_field_warns_as_ambiguous():
+    with pytest.warns(AssumptionWarning, match="1 bare value"):
+        got = parse_superelevation([6, 0.05])
+    np.testing.assert_allclose(got, [0.06, 0.0005])
+
+
+def test_forced_units():
+    np.testing.assert_allclose(parse_superelevation([0.5], "percent"), [0.005])
+    np.testing.assert_allclose(parse_superelevation([0.05, "3%"], "fraction"), [0.05, 0.03])
+
+
+def test_unreadable_and_implausible_values_are_counted():
+    with pytest.warns(DataQualityWarning, match="1 unreadable value.*1 value"):
+        got = parse_superelevation(["steep", "35%", "5%"])
+    assert np.isnan(got[0]) and np.isnan(got[1]) and got[2] == pytest.approx(0.05)
+
+
+def test_parse_number_first_number():
+    n, pct, bad = parse_number(["7,5 m", "2;3", "x", None, 3])
+    np.testing.assert_allclose(n, [7.5, 2, np.nan, np.nan, 3])
+    assert list(bad) == [False, False, True, False, False]
+    assert not pct.any()
+
+
+def test_design_superelevation_at_minimum_radius():
+    """AASHTO Green Book 2011 (6th ed.) Table 3-7 via REFERENCES.md 1c: at 100 km/h with
+    e_max 8 % and f_max 0.12 the minimum radius is 393.7 m (V-2nd, Ethiopian Roads Authority
+    Geometric Design Manual 2002 ch. 8), with e_max 6 % it is 437.4 m (D). At R_min the
+    design superelevation is e_max; method 1 (from memory) halves it at twice the radius."""
+    got = design_superelevation(np.array([393.7, 787.4, 437.4, 200.0]),
+                                np.array([100.0, 100.0, 100.0, 100.0]), 0.08)
+    np.testing.assert_allclose(got[:2], [0.08, 0.04], atol=2e-4)
+    assert got[3] == 0.08  # capped at e_max below R_min
+    e6 = design_superelevation(np.array([437.4]), np.array([100.0]), 0.06)
+    np.testing.assert_allclose(e6, [0.06], atol=2e-4)
+
+
+def test_assumption_modes():
+    r = np.array([393.7, 5000.0, 300.0])
+    v = np.array([100.0, 100.0, np.nan])
+    with pytest.warns(AssumptionWarning, match="unknown for 1 of 3"):
+        inner, outer, applied = assume_superelevation("design", r, v, crown=0.02,
+                                                      e_max=0.08, value=None)
+    np.testing.assert_allclose(inner, [0.08, 0.02, 0.02], atol=2e-4)
+    # 5000 m at 100 km/h: design e 0.0063 < crown, so the crown stays (outer lane adverse)
+    np.testing.assert_allclose(outer, [0.08, -0.02, -0.02], atol=2e-4)
+    assert list(applied) == ["design", "design", "crown"]
+    inner, outer, applied = assume_superelevation("zero", r, v, crown=0.02, e_max=0.08,
+                                                  value=None)
+    assert (inner == 0).all() and (outer == 0).all() and applied[0] == "zero"
+    inner, outer, _ = assume_superelevation("value", r, v, crown=0.02, e_max=0.08, value=0.05)
+    assert (inner == 0.05).all() and (outer == 0.05).all()
