@@ -130,6 +130,7 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
         ter = _timed(timings, "terrain",
                      lambda: terrain.evaluate(curves, geo.stations, config,
                                               None if dem is None else str(dem)))
+        terrain_record = terrain.run_record(ter)
         curves = curves.join(ter.drop(columns=[c for c in ter.columns if c in curves.columns]))
         report("terrain", 0.65)
         phys = _timed(timings, "physics", lambda: physics.evaluate(curves, config))
@@ -146,6 +147,7 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
     curves_l, segments_l, hazards_l = layers
     run = _run_record(source, dem, config, chains, frame, curves_l, hazards_l, segments_l,
                       speed_report, messages, timings)
+    run["terrain"] = terrain_record
     return ScanResult(curves=curves_l, segments=segments_l, hazards=hazards_l, run=run)
 
 
@@ -247,7 +249,6 @@ def _run_record(source, dem, config, chains, frame, curves, hazards, segments, s
         "dem": None if dem is None else str(dem),
         "parameters": config.as_dict(),
         "physics": physics.run_record(config),
-        "terrain": terrain.run_record(curves) if hasattr(terrain, "run_record") else {},
         "input_features": int(len(frame)),
         "chains": int(chains.n_chains),
         "curves": int(len(curves)),

@@ -128,6 +128,11 @@ def working_crs(frame: gpd.GeoDataFrame, override: Any = None) -> tuple[pyproj.C
             return src, f"working CRS is the input CRS {src.to_string()}"
         why = f"scale error {error:.2%}" if error > _MAX_SCALE_ERROR else "not in metres"
     elif src.is_geographic:
+        if bounds[0] < -360 or bounds[2] > 360 or bounds[1] < -90.5 or bounds[3] > 90.5:
+            raise CRSError(
+                f"the input CRS {src.name!r} is geographic but coordinates reach "
+                f"({bounds[0]:.0f}, {bounds[1]:.0f}, {bounds[2]:.0f}, {bounds[3]:.0f}); "
+                "they are not longitude/latitude (GeoJSON is always read as WGS 84)")
         lon, lat = _extent_lonlat(bounds, src)
         why = "input is geographic"
     else:

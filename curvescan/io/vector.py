@@ -50,7 +50,8 @@ def _choose_layer(path: str, layer: str | None) -> str | None:
         return layer
     if _is_gpx(path):
         for name in _GPX_LINE_LAYERS:
-            if name in names and pyogrio.read_info(path, layer=name)["features"] > 0:
+            if name in names and pyogrio.read_info(
+                    path, layer=name, force_feature_count=True)["features"] > 0:
                 return name
         raise InputError(f"{path} has no tracks or routes (GPX waypoints are not lines)")
     lines = [str(n) for n, g in layers if g is not None and "Line" in str(g)]
@@ -155,6 +156,8 @@ def write_layers(
         for name, frame in layers.items():
             meta = dict((layer_metadata or {}).get(name, {}))
             kwargs = {"layer": name, "driver": "GPKG", "append": os.path.exists(tmp)}
+            if not kwargs["append"]:  # GeoPackage 1.3: desktop GIS on GDAL < 3.7 warn on 1.4
+                kwargs["dataset_options"] = {"VERSION": "1.3"}
             if meta:
                 kwargs["layer_metadata"] = meta
             if isinstance(frame, gpd.GeoDataFrame):

@@ -1,0 +1,129 @@
+"""The command line: exit codes 0/1/2, one-line errors, outputs, cautions, demo."""
+
+from __future__ import annotations
+
+import pyogrio
+import pytest
+
+from curvescan.cli.main import main
+from curvescan.export import CONTRACT_FIELDS
+
+
+@pytest.fixture
+def roads_file(tmp_path, curve_layer):
+    path = tmp_path / "roads.gpkg"
+    curve_layer.to_file(path, layer="roads")
+    return path
+
+
+def test_scan_writes_contract_layers(runner, roads_file, tmp_path):
+    out = tmp_path / "out.gpkg"
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(out), "--speed-field",
+                               "maxspeed"])
+    assert res.exit_code == 0, res.output
+    layers = dict(pyogrio.list_layers(out))
+    assert {"curves", "segments", "hazards", "run"} <= set(layers)
+    info = pyogrio.read_info(out, layer="curves")
+    assert set(CONTRACT_FIELDS) <= set(info["fields"])
+    assert "curves found: 1" in res.output
+    assert "CAUTION" in res.output
+
+
+def test_existing_output_needs_overwrite(runner, roads_file, tmp_path):
+    out = tmp_path / "out.gpkg"
+    out.write_bytes(b"keep me")
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(out)])
+    assert res.exit_code == 1
+    assert "output exists" in res.output and "--overwrite" in res.output
+    assert out.read_bytes() == b"keep me"
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(out), "--overwrite"])
+    assert res.exit_code == 0, res.output
+
+
+def test_bad_usage_exit_2(runner, roads_file, tmp_path):
+    out = str(tmp_path / "o.gpkg")
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", out, "--max-radius-m", "-5"])
+    assert res.exit_code == 2
+    assert "below the minimum" in res.output
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", out, "--speed-unit", "knots"])
+    assert res.exit_code == 2
+    res = runner.invoke(main, ["scan", str(roads_file)])
+    assert res.exit_code == 2 and "-o OUT.gpkg" in res.output
+
+
+def test_unknown_field_lists_fields(runner, roads_file, tmp_path):
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(tmp_path / "o.gpkg"),
+                               "--speed-field", "speedlimit"])
+    assert res.exit_code == 1
+    assert "'speedlimit' not found" in res.output and "maxspeed" in res.output
+    assert "Traceback" not in res.output
+
+
+def test_missing_input_and_unwritable_folder(runner, roads_file, tmp_path, monkeypatch):
+    res = runner.invoke(main, ["scan", str(tmp_path / "nope.gpkg"), "-o", str(tmp_path / "o.gpkg")])
+    assert res.exit_code == 1 and "input not found" in res.output
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(tmp_path / "no" / "o.gpkg")])
+    assert res.exit_code == 1 and "output folder does not exist" in res.output
+    # root may write anywhere, so simulate a read-only folder at the access check
+    import curvescan.io.vector as vector
+
+    monkeypatch.setattr(vector.os, "access", lambda path, mode: False)
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(tmp_path / "o.gpkg")])
+    assert res.exit_code == 1 and "not writable" in res.output
+
+
+def test_missing_crs_one_line_error(runner, tmp_path, curve_layer):
+    path = tmp_path / "nocrs.shp"
+    curve_layer.set_crs(None, allow_override=True).to_file(path)
+    res = runner.invoke(main, ["scan", str(path), "-o", str(tmp_path / "o.gpkg")])
+    assert res.exit_code == 1
+    assert "no CRS" in res.output and len(res.output.strip().splitlines()) == 1
+    res = runner.invoke(main, ["scan", str(path), "-o", str(tmp_path / "o.gpkg"),
+                               "--assume-crs", "EPSG:32632"])
+    assert res.exit_code == 0, res.output
+
+
+def test_projected_coordinates_in_geojson(runner, tmp_path, curve_layer):
+    path = tmp_path / "wrong.geojson"
+    curve_layer.set_crs(None, allow_override=True).to_file(path)  # GeoJSON means WGS 84
+    res = runner.invoke(main, ["scan", str(path), "-o", str(tmp_path / "o.gpkg")])
+    assert res.exit_code == 1 and "not longitude/latitude" in res.output
+
+
+def test_verbose_shows_traceback(runner, tmp_path):
+    res = runner.invoke(main, ["-v", "scan", str(tmp_path / "nope.gpkg"), "-o",
+                               str(tmp_path / "o.gpkg")])
+    assert res.exit_code == 1
+    assert res.exception is not None  # the error propagates instead of a one-liner
+
+
+def test_help_carries_caution_and_units(runner):
+    res = runner.invoke(main, ["--help"])
+    assert "CAUTION" in res.output and "licensed engineers" in res.output
+    res = runner.invoke(main, ["scan", "--help"])
+    for flag in ("--layer", "--speed-field", "--speed-unit", "--superelevation-field",
+                 "--dem", "--crs", "--assume-crs", "--vehicle", "--overwrite",
+                 "--station-spacing-m"):
+        assert flag in res.output
+    assert "CAUTION" in res.output
+
+
+def test_unparsable_speeds_counted_rows_kept(runner, tmp_path, curve_layer):
+    frame = curve_layer.copy()
+    frame["maxspeed"] = ["fast"]
+    path = tmp_path / "r.gpkg"
+    frame.to_file(path)
+    out = tmp_path / "o.gpkg"
+    res = runner.invoke(main, ["scan", str(path), "-o", str(out), "--speed-field", "maxspeed"])
+    assert res.exit_code == 0
+    assert "could not be parsed" in res.output
+    curves = pyogrio.read_dataframe(out, layer="curves")
+    assert len(curves) == 1 and curves["posted_kmh"].isna().all()
+
+
+def test_demo_runs(runner, tmp_path, demo_roads):
+    out = tmp_path / "demo.gpkg"
+    res = runner.invoke(main, ["demo", "-o", str(out)])
+    assert res.exit_code == 0, res.output
+    assert "Harrow Vale" in res.output and "hazard curves" in res.output
+    assert {"curves", "segments", "hazards", "run"} <= {n for n, _ in pyogrio.list_layers(out)}

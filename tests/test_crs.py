@@ -1,0 +1,51 @@
+"""CRS handling checked against pyproj: geographic and distorted input keep true radii."""
+
+from __future__ import annotations
+
+import geopandas as gpd
+import numpy as np
+import pyproj
+import pytest
+import shapely
+
+import curvescan
+
+
+def _geodesic_circle_road(lon0, lat0, radius_m, deflection_deg=90.0, n=40, tangent_m=300.0):
+    """A road in lon/lat whose curve is a circle of known radius, built with pyproj.Geod.
+
+    Points on the curve are at geodesic distance ``radius_m`` from the centre; the two
+    tangents leave the curve ends perpendicular to the radius.
+    """
+    geod = pyproj.Geod(ellps="WGS84")
+    az = np.linspace(180.0, 180.0 + deflection_deg, n)
+    lon, lat, _ = geod.fwd(np.full(n, lon0), np.full(n, lat0), az, np.full(n, radius_m))
+    # tangents: from each curve end, walk along the local tangent direction
+    # azimuth grows clockwise, so travel is azimuth-from-centre + 90 degrees
+    _, back0, _ = geod.inv(lon0, lat0, lon[0], lat[0])  # back azimuth: point -> centre
+    lon_a, lat_a, _ = geod.fwd(lon[0], lat[0], back0 + 90, tangent_m)
+    _, back1, _ = geod.inv(lon0, lat0, lon[-1], lat[-1])
+    lon_b, lat_b, _ = geod.fwd(lon[-1], lat[-1], back1 - 90, tangent_m)
+    xs = np.r_[lon_a, lon, lon_b]
+    ys = np.r_[lat_a, lat, lat_b]
+    return gpd.GeoDataFrame(geometry=[shapely.LineString(np.c_[xs, ys])], crs="EPSG:4326")
+
+
+@pytest.mark.parametrize("lon0,lat0", [(10.3, 46.2), (-120.5, 64.0), (151.0, -33.8)])
+@pytest.mark.parametrize("radius", [150.0, 600.0])
+def test_geodesic_circle_radius_within_half_percent(lon0, lat0, radius):
+    """Issue check: a circle of known radius built with pyproj.Geod in lon/lat comes back
+    with that radius within 0.5 %."""
+    roads = _geodesic_circle_road(lon0, lat0, radius)
+    result = curvescan.scan(roads)
+    assert len(result.curves) == 1
+    assert result.curves["radius_m"].iloc[0] == pytest.approx(radius, rel=0.005)
+    assert result.curves.crs.to_epsg() == 4326  # output in the input CRS by default
+
+
+def test_web_mercator_input_is_reprojected_for_true_radius():
+    """Web Mercator stretches lengths by 1/cos(lat) (about 1.44 at 46 N); radii must not."""
+    roads = _geodesic_circle_road(10.3, 46.2, 300.0).to_crs("EPSG:3857")
+    result = curvescan.scan(roads)
+    assert result.curves["radius_m"].iloc[0] == pytest.approx(300.0, rel=0.005)
+    assert "scale error" in " ".join(result.run["notes"])

@@ -1,0 +1,154 @@
+"""Read and prepare: formats, CRS handling, cleaning and chain joining, bad input."""
+
+from __future__ import annotations
+
+import warnings
+
+import geopandas as gpd
+import numpy as np
+import pytest
+import shapely
+
+from curvescan.config import make_config
+from curvescan.errors import CRSError, DataQualityWarning, DataSourceError, InputError
+from curvescan.prepare import prepare
+from curvescan.read import load
+
+from .conftest import UTM, frame_from_lines, simple_curve
+
+
+def _chains(frame, **kw):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataQualityWarning)
+        return prepare(load(frame, make_config(**kw)), make_config(**kw))
+
+
+@pytest.mark.parametrize("driver,ext", [("GPKG", "gpkg"), ("ESRI Shapefile", "shp"),
+                                        ("GeoJSON", "geojson"), ("FlatGeobuf", "fgb"),
+                                        ("Parquet", "parquet")])
+def test_reads_every_format(tmp_path, curve_layer, driver, ext):
+    path = tmp_path / f"roads.{ext}"
+    if driver == "Parquet":
+        curve_layer.to_parquet(path)
+    else:
+        curve_layer.to_file(path, driver=driver)
+    frame = load(str(path), make_config())
+    assert len(frame) == 1
+    assert "src_fid" in frame.columns
+    assert frame.crs.to_epsg() == 32632
+
+
+def test_gpx_tracks(tmp_path):
+    lon = np.linspace(10.0, 10.01, 20)
+    lat = 46.0 + 0.002 * np.sin(np.linspace(0, 3, 20))
+    trkpts = "".join(f'<trkpt lat="{a}" lon="{o}"></trkpt>' for o, a in zip(lon, lat))
+    gpx = ('<?xml version="1.0"?><gpx version="1.1" creator="test" '
+           'xmlns="http://www.topografix.com/GPX/1/1"><wpt lat="46" lon="10"></wpt>'
+           f'<trk><name>t</name><trkseg>{trkpts}</trkseg></trk></gpx>')
+    path = tmp_path / "route.gpx"
+    path.write_text(gpx)
+    frame = load(str(path), make_config())
+    assert len(frame) == 1
+    assert frame.geometry.iloc[0].geom_type == "MultiLineString"
+
+
+def test_layer_choice_and_unknown_layer(tmp_path, curve_layer):
+    path = tmp_path / "two.gpkg"
+    curve_layer.to_file(path, layer="a")
+    curve_layer.to_file(path, layer="b")
+    with pytest.warns(DataQualityWarning, match="several line layers"):
+        load(str(path), make_config())
+    assert len(load(str(path), make_config(layer="b"))) == 1
+    with pytest.raises(InputError, match="layer 'c' not found.*a, b"):
+        load(str(path), make_config(layer="c"))
+
+
+def test_missing_file():
+    with pytest.raises(DataSourceError, match="input not found"):
+        load("/nonexistent/roads.gpkg", make_config())
+
+
+def test_unreadable_format(tmp_path):
+    path = tmp_path / "broken.gpkg"
+    path.write_text("this is not a geopackage")
+    with pytest.raises(DataSourceError, match="cannot open"):
+        load(str(path), make_config())
+
+
+def test_points_only_layer(tmp_path):
+    frame = gpd.GeoDataFrame(geometry=[shapely.Point(0, 0)], crs=UTM)
+    with pytest.raises(InputError, match="no usable line geometries"):
+        _chains(frame)
+
+
+def test_missing_crs_refused_and_assumed(curve_layer):
+    bare = curve_layer.set_crs(None, allow_override=True)
+    with pytest.raises(CRSError, match="no CRS.*--assume-crs"):
+        load(bare, make_config())
+    assert load(bare, make_config(assume_crs="EPSG:32632")).crs.to_epsg() == 32632
+    with pytest.raises(CRSError, match="not a valid CRS"):
+        load(bare, make_config(assume_crs="EPSG:99999999"))
+
+
+def test_crs_override_must_be_metric(curve_layer):
+    with pytest.raises(CRSError, match="projected CRS in metres"):
+        _chains(curve_layer, crs="EPSG:4326")
+
+
+def test_split_and_reversed_features_join_into_one_chain():
+    al = simple_curve()
+    s = np.append(np.arange(0, al.length_m, 10.0), al.length_m)
+    xy = al.points(s)
+    parts = [xy[:20], xy[19:35][::-1], xy[34:]]
+    chains = _chains(frame_from_lines(parts))
+    assert chains.n_chains == 1
+    assert sorted(chains.rows[0].tolist()) == [0, 1, 2]
+    np.testing.assert_allclose(chains.lengths[0], _chains(frame_from_lines([xy])).lengths[0])
+
+
+def test_join_field_keeps_different_roads_apart():
+    a = np.array([[0, 0], [100, 0]])
+    b = np.array([[100, 0], [200, 10]])
+    assert _chains(frame_from_lines([a, b], ref=["A", "A"]), join_field="ref").n_chains == 1
+    assert _chains(frame_from_lines([a, b], ref=["A", "B"]), join_field="ref").n_chains == 2
+
+
+def test_junction_of_three_is_not_joined():
+    lines = [np.array([[0, 0], [100, 0]]), np.array([[100, 0], [200, 0]]),
+             np.array([[100, 0], [100, 100]])]
+    assert _chains(frame_from_lines(lines)).n_chains == 3
+
+
+def test_ring_split_in_parts_is_one_closed_chain():
+    t = np.linspace(0, 2 * np.pi, 61)
+    ring = np.c_[50 * np.cos(t), 50 * np.sin(t)]
+    chains = _chains(frame_from_lines([ring[:21], ring[20:41], ring[40:]]))
+    assert chains.n_chains == 1
+    assert bool(chains.closed[0])
+
+
+def test_degenerate_geometries_recorded_not_lost():
+    frame = frame_from_lines([np.array([[0, 0], [100, 0]])] * 1)
+    extra = gpd.GeoDataFrame(geometry=[None, shapely.LineString(),
+                                       shapely.LineString([(5, 5), (5, 5)]),
+                                       shapely.Point(1, 1)], crs=UTM)
+    frame = gpd.GeoDataFrame(
+        geometry=list(frame.geometry) + list(extra.geometry), crs=UTM)
+    with pytest.warns(DataQualityWarning, match="4 input features or parts skipped"):
+        chains = prepare(load(frame, make_config()), make_config())
+    reasons = {s["src_fid"]: s["reason"] for s in chains.skipped}
+    assert set(reasons) == {1, 2, 3, 4}
+    assert "empty" in reasons[1] and "zero length" in reasons[3] and "not a line" in reasons[4]
+
+
+def test_z_dropped_multipart_exploded_spike_removed():
+    zline = shapely.LineString([(0, 0, 5), (100, 0, 6), (200, 0, 7)])
+    multi = shapely.MultiLineString([[(0, 50), (100, 50)], [(300, 50), (400, 50)]])
+    spike = shapely.LineString([(0, 100), (50, 100), (100, 100), (60, 100.5), (150, 100)])
+    frame = gpd.GeoDataFrame(geometry=[zline, multi, spike], crs=UTM)
+    frame = frame.set_geometry(frame.translate(600000, 5100000))
+    chains = _chains(frame)
+    assert chains.coords.shape[1] == 2
+    assert chains.n_chains == 4
+    lengths = sorted(np.round(chains.lengths, 1))
+    assert lengths[-1] == pytest.approx(200.0, abs=0.2)  # spike vertex (100,100) removed
