@@ -1,0 +1,215 @@
+"""Geometry accuracy against alignments with exactly known curves.
+
+Generates a few hundred random alignments per scenario (curvescan.synthetic: tangents,
+clothoid transitions, arcs, compound and reverse curves), digitises them, runs them
+through the public ``curvescan.scan`` and scores the circular parts found against the
+truth:
+
+* recall and precision of circular parts (truth in scope: deflection >= 10 deg and
+  radius <= 1500 m),
+* median and 90th percentile relative radius error,
+* error of the curve start/end and circular start/end positions (m along the road),
+* ratio of the radius error to the Cramer-Rao (KCR) standard deviation for the same
+  vertices and noise (noisy scenarios), and
+* calibration of ``radius_se_m``: share of curves whose true radius lies within two
+  standard errors.
+
+Usage::
+
+    python benchmarks/accuracy.py                # all scenarios, 200 alignments each
+    python benchmarks/accuracy.py --roads 50 --scenarios clean,noisy
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import time
+import warnings
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+
+import curvescan
+from curvescan.synthetic import random_alignment, split_features, vertices
+
+CRS = "EPSG:32632"
+SCENARIOS = {
+    "clean": dict(spacing_m=10.0, noise_m=0.0),
+    "noisy": dict(jitter=(5.0, 25.0), noise_m=0.5),
+    "simplified": dict(simplify_m=0.5, noise_m=0.2),
+    "split": dict(spacing_m=10.0, noise_m=0.0, split=True),
+}
+MAX_R, MIN_DEFL = 1500.0, 10.0
+
+
+def make_roads(n_roads: int, scenario: str, seed: int = 1):
+    """Digitised roads (one feature each, or split pieces) plus truth and reference lines."""
+    spec = dict(SCENARIOS[scenario])
+    split = spec.pop("split", False)
+    rng = np.random.default_rng(seed)
+    geoms, road_of, truths, refs, noise = [], [], [], [], spec.get("noise_m", 0.0)
+    true_vertices = []
+    for i in range(n_roads):
+        al = random_alignment(rng, n_curves=6)
+        offset = np.array([500_000.0 + (i % 20) * 30_000.0, 5_000_000.0 + (i // 20) * 30_000.0])
+        vrng = np.random.default_rng(seed * 100_003 + i)
+        xy, s = vertices(al, vrng, **spec)
+        exact = al.points(s)
+        xy = xy + offset
+        ref = shapely.LineString(xy)
+        t = al.truth()
+        t["road"] = i
+        for end in ("circ_start_m", "circ_end_m", "s_start_m", "s_end_m"):
+            pts = al.points(t[end].to_numpy()) + offset
+            t[end.replace("_m", "_ref")] = shapely.line_locate_point(ref, shapely.points(pts))
+        centre_s = 0.5 * (t["circ_start_m"] + t["circ_end_m"]).to_numpy()
+        t["kcr_sd_m"] = [_kcr_sd(exact, s, row, noise) for _, row in t.iterrows()]
+        truths.append(t)
+        refs.append(ref)
+        true_vertices.append((exact + offset, s))
+        pieces = split_features(xy, rng, int(rng.integers(2, 5))) if split else [xy]
+        for p in pieces:
+            geoms.append(shapely.LineString(p))
+            road_of.append(i)
+        del centre_s
+    frame = gpd.GeoDataFrame({"road": road_of}, geometry=geoms, crs=CRS)
+    return frame, pd.concat(truths, ignore_index=True), refs
+
+
+def _kcr_sd(exact_xy, s, row, noise):
+    """Cramer-Rao standard deviation of the radius from the vertices on the true arc."""
+    if noise <= 0:
+        return np.nan
+    m = (s >= row["circ_start_m"]) & (s <= row["circ_end_m"])
+    if m.sum() < 3:
+        return np.inf
+    p = exact_xy[m]
+    # centre of the true circle from three exact points
+    a, b, c = p[0], p[len(p) // 2], p[-1]
+    d = 2 * (a[0] * (b[1] - c[1]) + b[0] * (c[1] - a[1]) + c[0] * (a[1] - b[1]))
+    if abs(d) < 1e-12:
+        return np.inf
+    ux = ((a @ a) * (b[1] - c[1]) + (b @ b) * (c[1] - a[1]) + (c @ c) * (a[1] - b[1])) / d
+    uy = ((a @ a) * (c[0] - b[0]) + (b @ b) * (a[0] - c[0]) + (c @ c) * (b[0] - a[0])) / d
+    r = np.hypot(p[:, 0] - ux, p[:, 1] - uy)
+    J = np.column_stack([(p[:, 0] - ux) / r, (p[:, 1] - uy) / r, np.ones(len(p))])
+    cov = noise ** 2 * np.linalg.pinv(J.T @ J)
+    return float(np.sqrt(max(cov[2, 2], 0.0)))
+
+
+def score(result, truth: pd.DataFrame, refs: list) -> tuple[dict, pd.DataFrame]:
+    """Match detected circular parts to truth arcs along each road and score them."""
+    seg = result.segments
+    seg = seg[seg["kind"] == "curve"].merge(
+        result.curves[["curve_id", "radius_m", "radius_se_m", "direction"]].rename(
+            columns={"radius_m": "r_fit"}), on="curve_id")
+    curves = result.curves.set_index("curve_id")
+    # which road is each detection on: nearest reference line to its midpoint
+    ref_lines = gpd.GeoSeries(refs, crs=CRS)
+    mid = seg.geometry.interpolate(0.5, normalized=True)
+    road = ref_lines.sindex.nearest(mid, return_all=False)[1]
+    seg = seg.assign(road=road)
+    a = shapely.line_locate_point(np.asarray(refs, dtype=object)[road],
+                                  shapely.get_point(seg.geometry.values, 0))
+    b = shapely.line_locate_point(np.asarray(refs, dtype=object)[road],
+                                  shapely.get_point(seg.geometry.values, -1))
+    seg["lo"], seg["hi"] = np.minimum(a, b), np.maximum(a, b)
+    cg = curves.loc[seg["curve_id"]].geometry.values
+    ca = shapely.line_locate_point(np.asarray(refs, dtype=object)[road], shapely.get_point(cg, 0))
+    cb = shapely.line_locate_point(np.asarray(refs, dtype=object)[road], shapely.get_point(cg, -1))
+    seg["c_lo"], seg["c_hi"] = np.minimum(ca, cb), np.maximum(ca, cb)
+    rows = []
+    used = set()
+    det_matched = np.zeros(len(seg), dtype=bool)
+    for road_id, t_road in truth.groupby("road"):
+        d_road = seg[seg["road"] == road_id]
+        for _, t in t_road.iterrows():
+            lo, hi = sorted((t["circ_start_ref"], t["circ_end_ref"]))
+            ov = np.minimum(d_road["hi"], hi) - np.maximum(d_road["lo"], lo)
+            frac = ov / max(hi - lo, 1e-9)
+            dfrac = ov / np.maximum(d_road["hi"] - d_road["lo"], 1e-9)
+            ok = (frac >= 0.5) & (dfrac >= 0.5)
+            best = None
+            if ok.any():
+                best = ov[ok].idxmax()
+            rec = dict(t)
+            if best is not None and best not in used:
+                used.add(best)
+                det_matched[seg.index.get_loc(best)] = True
+                d = seg.loc[best]
+                ts, te = sorted((t["s_start_ref"], t["s_end_ref"]))
+                rec.update(found=True, r_fit=d["r_fit"], r_se=d["radius_se_m"],
+                           circ_err_m=max(abs(d["lo"] - lo), abs(d["hi"] - hi)),
+                           ends_err_m=max(abs(d["c_lo"] - ts), abs(d["c_hi"] - te)),
+                           dir_ok=d["direction"] == t["direction"])
+            else:
+                rec.update(found=False)
+            rows.append(rec)
+    m = pd.DataFrame(rows)
+    scope = (m["circ_deflection_deg"] >= MIN_DEFL) & (m["radius_m"] <= MAX_R)
+    ms = m[scope]
+    hit = ms[ms["found"]]
+    rel = (hit["r_fit"] - hit["radius_m"]).abs() / hit["radius_m"]
+    err = (hit["r_fit"] - hit["radius_m"]).abs()
+    kcr = err / hit["kcr_sd_m"]
+    kcr = kcr[np.isfinite(kcr)]
+    within = (err <= 2 * hit["r_se"]).mean()
+    precision = det_matched.mean() if len(det_matched) else 1.0
+    out = {
+        "truth_arcs_in_scope": int(len(ms)),
+        "detected_circular_parts": int(len(seg)),
+        "recall": float(ms["found"].mean()),
+        "precision": float(precision),
+        "radius_rel_err_median_pct": float(100 * rel.median()),
+        "radius_rel_err_p90_pct": float(100 * rel.quantile(0.9)),
+        "radius_abs_err_median_m": float(err.median()),
+        "radius_abs_err_p90_m": float(err.quantile(0.9)),
+        "kcr_ratio_median": float(kcr.median()) if len(kcr) else float("nan"),
+        "kcr_ratio_p90": float(kcr.quantile(0.9)) if len(kcr) else float("nan"),
+        "kcr_curves": int(len(kcr)),
+        "se_within_2_pct": float(100 * within),
+        "circular_ends_err_median_m": float(hit["circ_err_m"].median()),
+        "curve_ends_err_median_m": float(hit["ends_err_m"].median()),
+        "curve_ends_err_p90_m": float(hit["ends_err_m"].quantile(0.9)),
+        "direction_ok_pct": float(100 * hit["dir_ok"].mean()),
+    }
+    return out, m
+
+
+def run(scenarios, n_roads, seed=1, **params):
+    report = {}
+    for name in scenarios:
+        frame, truth, refs = make_roads(n_roads, name, seed)
+        t0 = time.perf_counter()
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            result = curvescan.scan(frame, **params)
+        elapsed = time.perf_counter() - t0
+        stats, _ = score(result, truth, refs)
+        stats["scan_s"] = round(elapsed, 2)
+        stats["features"] = len(frame)
+        report[name] = stats
+    return report
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--roads", type=int, default=200, help="alignments per scenario")
+    ap.add_argument("--scenarios", default=",".join(SCENARIOS))
+    ap.add_argument("--seed", type=int, default=1)
+    ap.add_argument("--json", action="store_true", help="print JSON only")
+    args = ap.parse_args()
+    report = run(args.scenarios.split(","), args.roads, args.seed)
+    if args.json:
+        print(json.dumps(report, indent=2))
+        return
+    table = pd.DataFrame(report)
+    with pd.option_context("display.float_format", "{:.3f}".format, "display.width", 200):
+        print(table)
+
+
+if __name__ == "__main__":
+    main()
