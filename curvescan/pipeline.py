@@ -83,6 +83,12 @@ class ScanResult:
         """Write all layers to one GeoPackage (atomically); return its path."""
         return write_gpkg(self, path, overwrite=overwrite)
 
+    def after_write(self, path: str | os.PathLike) -> None:
+        """Store layer styles in the written GeoPackage (see :mod:`curvescan.styles`)."""
+        from .styles import write_styles
+
+        write_styles(path, self.layers())
+
 
 def scan(source: Any, *, dem: str | os.PathLike | None = None,
          progress: Progress | None = None, **parameters: Any) -> ScanResult:
@@ -144,11 +150,13 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
         messages.append(f"{w.category.__name__}: {w.message}")
         warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
     timings["total"] = time.perf_counter() - t0
-    curves_l, segments_l, hazards_l = layers
+    curves_l, segments_l, hazards_l, extra_l, assess_summary = layers
     run = _run_record(source, dem, config, chains, frame, curves_l, hazards_l, segments_l,
                       speed_report, messages, timings)
     run["terrain"] = terrain_record
-    return ScanResult(curves=curves_l, segments=segments_l, hazards=hazards_l, run=run)
+    run["assessment"] = assess_summary
+    return ScanResult(curves=curves_l, segments=segments_l, hazards=hazards_l, run=run,
+                      extra=extra_l, descriptions=dict(assess.DESCRIPTIONS))
 
 
 def _timed(timings: dict, name: str, fn: Callable[[], Any]) -> Any:
@@ -186,7 +194,8 @@ def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, chains: An
     curves.insert(1, "src_fids", src_fid_text(groups, rows, src, n))
     report: dict[str, Any] = {"field": config.speed_field}
     if config.speed_field is not None:
-        speeds, report = parse_speeds(frame[config.speed_field], config.speed_unit)
+        speeds, report = parse_speeds(frame[config.speed_field], config.speed_unit,
+                                      config=config)
         report["field"] = config.speed_field
         if report["unparsed"]:
             warnings.warn(
@@ -210,23 +219,26 @@ def _layers(curves: pd.DataFrame, segments: pd.DataFrame, chains: Any,
     geom = substrings(chains, curves["chain_id"].to_numpy(), curves["s_start_m"].to_numpy(),
                       curves["s_end_m"].to_numpy())
     curves_g = gpd.GeoDataFrame(curves, geometry=geom, crs=crs)
-    hz = assess.hazards(curves_g, config)
-    hz = gpd.GeoDataFrame(hz, geometry="geometry", crs=crs)
+    judged = assess.evaluate(curves_g, frame, chains, config)
+    curves_g = judged.curves
+    hz = gpd.GeoDataFrame(judged.hazards, geometry="geometry", crs=crs)
     seg_chain = segments["chain_id"].to_numpy()
     g, r = rows_on(chains, seg_chain, segments["s_start_m"].to_numpy(),
                    segments["s_end_m"].to_numpy())
     segments = segments.copy()
     segments.insert(0, "segment_id", np.arange(1, len(segments) + 1, dtype=np.int64))
     segments["src_fids"] = src_fid_text(g, r, frame["src_fid"].to_numpy(), len(segments))
+    segments["road_name"] = assess.segment_names(frame, g, r, len(segments), config)
     sgeom = substrings(chains, seg_chain, segments["s_start_m"].to_numpy(),
                        segments["s_end_m"].to_numpy())
     segments_g = gpd.GeoDataFrame(segments, geometry=sgeom, crs=crs)
     out = []
-    for layer in (curves_g, segments_g, hz):
+    winter = gpd.GeoDataFrame(judged.winter, geometry="geometry", crs=crs)
+    for layer in (curves_g, segments_g, hz, winter):
         layer = layer.drop(columns=[c for c in layer.columns if c.startswith("attr_")])
         layer = to_output_crs(layer, frame.crs, config.output_crs)
-        out.append(order_columns(layer, CONTRACT_FIELDS))
-    return tuple(out)
+        out.append(order_columns(layer, CONTRACT_FIELDS if len(out) < 3 else ()))
+    return out[0], out[1], out[2], {"winter": out[3]}, judged.summary
 
 
 def _run_record(source, dem, config, chains, frame, curves, hazards, segments, speed_report,

@@ -2,39 +2,108 @@
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, Mapping
 
 import numpy as np
+import pandas as pd
 
 __all__ = ["summary_lines"]
 
 
+def _pairs(counts: Mapping[str, Any]) -> str:
+    return ", ".join(f"{k} {v}" for k, v in counts.items()) or "none"
+
+
+def _speed_lines(report: Mapping[str, Any]) -> list[str]:
+    lines = []
+    if not report or report.get("field") is None:
+        return ["posted speed: no speed field given (--speed-field); nothing can be flagged"]
+    bits = [f"{report.get('parsed', 0)} read"]
+    for key, label in (("missing", "blank"), ("unparsed", "unparsable"),
+                       ("absurd", "absurd"), ("no_limit", "no limit"),
+                       ("variable", "variable"), ("implicit", "implicit (country code)"),
+                       ("multiple", "several values")):
+        if report.get(key):
+            bits.append(f"{report[key]} {label}")
+    lines.append(f"posted speed field {report['field']!r}: " + ", ".join(bits))
+    for key, label in (("unparsed_values", "unparsable"), ("absurd_values", "absurd")):
+        values = report.get(key) or {}
+        if values:
+            lines.append(f"  {label} values: " + ", ".join(f"{k!r} x{v}"
+                                                       for k, v in list(values.items())[:10]))
+    return lines
+
+
+def _fmt(value: Any, spec: str = ">7.0f") -> str:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return f"{'-':>7}"
+    return f"{'-':>7}" if not np.isfinite(v) else format(v, spec)
+
+
 def summary_lines(result: Any, worst: int = 10) -> list[str]:
-    """Counts per condition and the ``worst`` curves by excess speed, as text lines."""
-    curves, hazards = result.curves, result.hazards
-    lines = [f"curves found: {len(curves)} on {result.run.get('chains', '?')} chains "
-             f"from {result.run.get('input_features', '?')} input features"]
-    skipped = result.run.get("skipped_features", 0)
+    """Counts per condition and mechanism, the worst curves and winter top, as text lines.
+
+    Parameters
+    ----------
+    result : ScanResult
+        A scan result (its ``run`` record holds the assessment summary).
+    worst : int
+        How many hazard and winter rows to list.
+    """
+    curves, hazards, run = result.curves, result.hazards, result.run
+    lines = [f"curves found: {len(curves)} on {run.get('chains', '?')} chains "
+             f"from {run.get('input_features', '?')} input features"]
+    skipped = run.get("skipped_features", 0)
     if skipped:
         lines.append(f"input features skipped (see run record): {skipped}")
+    lines.extend(_speed_lines(run.get("posted_speed") or {}))
+    summary = run.get("assessment") or {}
     posted = curves["posted_kmh"].notna().sum() if "posted_kmh" in curves else 0
     lines.append(f"curves with a posted speed: {posted}")
-    counts = []
-    for col in [c for c in curves.columns if c.startswith("v_") and c.endswith("_kmh")
-                and not c.endswith(("_low_kmh", "_high_kmh", "_limit_kmh"))]:
-        over = int(np.sum(curves["posted_kmh"].to_numpy(float) > curves[col].to_numpy(float)))
-        counts.append(f"{col[2:-4]} {over}")
-    lines.append("posted speed above the limit: " + ", ".join(counts))
+    if summary:
+        lines.append("posted speed above the limit: "
+                     + _pairs(summary.get("exceeded_per_condition", {})))
+        lines.append("hazards by mildest condition exceeded: "
+                     + _pairs(summary.get("hazards_per_mildest_condition", {})))
+        lines.append("hazards by governing mechanism: "
+                     + _pairs(summary.get("hazards_per_mechanism", {})))
+        lines.append("speed consistency (Lamm II, from memory): "
+                     + _pairs(summary.get("consistency_counts", {})))
     lines.append(f"hazard curves: {len(hazards)}")
     if len(hazards):
-        lines.append(f"worst {min(worst, len(hazards))} by excess speed:")
-        lines.append(f"  {'curve':>6} {'radius m':>9} {'posted':>7} {'limit':>7} "
-                     f"{'excess':>7}  condition  on features")
-        top = hazards.sort_values("max_excess_kmh", ascending=False).head(worst)
-        for _, row in top.iterrows():
-            limit = row["posted_kmh"] - row["max_excess_kmh"]
+        top = hazards.sort_values("severity_rank").head(worst) \
+            if "severity_rank" in hazards else hazards.head(worst)
+        lines.append(f"worst {len(top)} by severity (mildest condition, then excess):")
+        lines.append(f"  {'curve':>6} {'radius m':>9} {'posted':>7} {'limit':>7} {'excess':>7}"
+                     f"  {'condition':<9} {'mech':<5} {'band':<11} road")
+        for row in top.itertuples(index=False):
+            r = row._asdict()
+            limit = r.get("limit_kmh", np.nan)
             lines.append(
-                f"  {int(row['curve_id']):>6} {row['radius_m']:>9.0f} {row['posted_kmh']:>7.0f} "
-                f"{limit:>7.0f} {row['max_excess_kmh']:>7.0f}  "
-                f"{str(row.get('mildest_condition', '')):<9}  {row['src_fids']}")
+                f"  {int(r['curve_id']):>6} {_fmt(r['radius_m'], '>9.0f')} "
+                f"{_fmt(r['posted_kmh'])} {_fmt(limit)} {_fmt(r['posted_kmh'] - limit)}  "
+                f"{str(r.get('mildest_condition') or ''):<9} "
+                f"{str(r.get('governing_mechanism') or ''):<5} "
+                f"{str(r.get('band_position') or ''):<11} "
+                f"{_road(r)}")
+    winter = getattr(result, "extra", {}).get("winter")
+    if winter is not None and len(winter):
+        lines.append(f"winter priority, top {min(worst, len(winter))} (layer 'winter'):")
+        for row in winter.head(worst).itertuples(index=False):
+            r = row._asdict()
+            why = ", ".join(f"{p} {r[f'winter_{p}']:.2f}" for p in
+                            ("snow", "ice", "bridge", "downgrade", "surprise", "traffic")
+                            if f"winter_{p}" in r and r[f"winter_{p}"] > 0)
+            lines.append(f"  {int(r['winter_rank']):>3}. curve {int(r['curve_id']):>5} "
+                         f"score {r['winter_score']:5.1f}  {_road(r)}  ({why})")
     return lines
+
+
+def _road(r: Mapping[str, Any]) -> str:
+    name = r.get("road_name")
+    name = "" if name is None or (isinstance(name, float) and np.isnan(name)) \
+        or pd.isna(name) else str(name)
+    fids = r.get("src_fids", "")
+    return f"{name} [{fids}]" if name else f"[{fids}]"
