@@ -23,6 +23,8 @@ __all__ = ["read_layer", "list_line_layers", "write_layers", "check_output_path"
 
 #: GPX layers that hold lines, in order of preference.
 _GPX_LINE_LAYERS = ("tracks", "routes")
+#: What GDAL reports for the GeoPackage's "undefined" systems (srs_id 0 and -1): no CRS.
+_UNDEFINED_SRS = ("Undefined geographic SRS", "Undefined Cartesian SRS")
 
 
 def _is_gpx(path: str) -> bool:
@@ -107,6 +109,8 @@ def read_layer(path: str | os.PathLike, /, layer: str | None = None) -> gpd.GeoD
     except (_PyogrioSourceError, DataLayerError, OSError) as exc:
         raise DataSourceError(_first_line(f"cannot read {path}: {exc}")) from None
     frame.index.name = None
+    if frame.crs is not None and frame.crs.name in _UNDEFINED_SRS:
+        frame = frame.set_crs(None, allow_override=True)  # GeoPackage srs_id 0 / -1
     frame.insert(0, "src_fid", frame.index.to_numpy(dtype="int64"))
     return frame.reset_index(drop=True)
 
