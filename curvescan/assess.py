@@ -115,7 +115,7 @@ class Assessment:
 
 
 def condition_order(curves: pd.DataFrame, config: Any) -> list[str]:
-    """Evaluated conditions with a limit column, mildest (highest friction) first."""
+    """Return the evaluated conditions with a limit column, mildest (highest friction) first."""
     from .physics import run_record
 
     conds = run_record(config)["conditions"]
@@ -138,14 +138,14 @@ def carry_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, chains: Any,
         curves["road_name"] = first_value(groups, rows, frame[name].to_numpy(dtype=object), n)
     else:
         curves["road_name"] = None
-    for key, fname, parser in (("aadt", config.aadt_field, parse_aadt),
-                               ("on_bridge", config.bridge_field, parse_bridge)):
+    for key, col, fname, parser in (("aadt", "aadt", config.aadt_field, parse_aadt),
+                                    ("bridge", "on_bridge", config.bridge_field, parse_bridge)):
         if fname is not None and fname in frame.columns:
             values, rep = parser(frame[fname], fname)
-            curves[key] = reduce_rows(groups, rows, values, n, how="max")
+            curves[col] = reduce_rows(groups, rows, values, n, how="max")
             report[key] = rep
         else:
-            curves[key] = np.nan
+            curves[col] = np.nan
             report[key] = {"field": fname, "note": "field not in the layer; part neutral"}
     curves["on_bridge"] = pd.array(np.where(np.isnan(curves["on_bridge"].to_numpy(float)), None,
                                             curves["on_bridge"].to_numpy(float) > 0),
@@ -311,7 +311,7 @@ def _counts(values: Any) -> dict[str, int]:
 
 def run_summary(curves: pd.DataFrame, hz: pd.DataFrame, names: list[str],
                 inputs: dict[str, Any], config: Any, worst: int = 10) -> dict[str, Any]:
-    """The assessment part of the run record (JSON-serialisable)."""
+    """Build the assessment part of the run record (JSON-serialisable)."""
     posted = curves["posted_kmh"].to_numpy(dtype=float)
     exceeded = {c: int(np.sum(posted > curves[f"v_{c}_limit_kmh"].to_numpy(float)))
                 for c in names}

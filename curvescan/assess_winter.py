@@ -75,8 +75,9 @@ def parse_aadt(values: Any, field_name: str = "aadt") -> tuple[np.ndarray, dict]
     todo = np.isnan(number) & ~missing
     if todo.any():
         cleaned = text[todo].str.replace(r"(?<=\d)[ ,'_](?=\d{3}\b)", "", regex=True)
-        found = cleaned.str.extract(r"^[~≈]?\s*(-?\d+(?:\.\d+)?)\s*(?:veh(?:icles)?(?:/d(?:ay)?)?|/d|"
-                                    r"vpd|per day)?$", expand=False)
+        found = cleaned.str.extract(r"^[~≈]?\s*(-?\d+(?:\.\d+)?)\s*"
+                                    r"(?:veh(?:icles)?(?:/d(?:ay)?)?|/d|vpd|per day)?$",
+                                    expand=False)
         number[todo] = pd.to_numeric(found, errors="coerce").to_numpy(dtype=float)
     unread = todo & np.isnan(number)
     negative = number < 0

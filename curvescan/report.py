@@ -43,7 +43,7 @@ def _fmt(value: Any, spec: str = ">7.0f") -> str:
 
 
 def summary_lines(result: Any, worst: int = 10) -> list[str]:
-    """Counts per condition and mechanism, the worst curves and winter top, as text lines.
+    """Summarise a result: counts per condition and mechanism, worst curves, winter top.
 
     Parameters
     ----------

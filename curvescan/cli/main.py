@@ -156,7 +156,10 @@ def summary_text(result: Any, output: str | None, worst: int = 10) -> str:
 
 def _register() -> None:
     from .demo import demo_command
+    from .report_cmds import hazards_command, map_command, profile_command
     main.add_command(demo_command)
+    for command in (map_command, profile_command, hazards_command):
+        main.add_command(command)
     try:
         from .presets import conditions_command, vehicles_command
     except ImportError:  # pragma: no cover - presets module is optional while built

@@ -1,0 +1,187 @@
+"""The assess stage: hazards, mildest condition, severity order, speed consistency, summary."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pyogrio
+import pytest
+
+from curvescan.assess import hazards, rerank
+from curvescan.assess_consistency import classify_drop, consistency
+from curvescan.config import make_config
+from tests.assess_common import scan_demo
+
+CONDS = ("dry", "wet", "snow", "ice")
+
+
+
+@pytest.fixture(scope="module")
+def demo_result(tmp_path_factory):
+    return scan_demo(tmp_path_factory)
+
+
+def _table(posted, limits, roll=None, low=None, high=None):
+    """A minimal physics-stage curve table; limits: rows of (dry, wet, snow, ice)."""
+    limits = np.asarray(limits, dtype=float)
+    n = len(posted)
+    data = {"curve_id": np.arange(1, n + 1), "posted_kmh": np.asarray(posted, float),
+            "radius_m": np.full(n, 100.0)}
+    for k, c in enumerate(CONDS):
+        data[f"v_{c}_kmh"] = limits[:, k]
+        data[f"v_{c}_limit_kmh"] = limits[:, k]
+        data[f"v_{c}_low_kmh"] = limits[:, k] - 5 if low is None else low[:, k]
+        data[f"v_{c}_high_kmh"] = limits[:, k] + 5 if high is None else high[:, k]
+        data[f"mechanism_{c}"] = np.array(["slide"] * n, dtype=object)
+        data[f"friction_margin_{c}"] = np.full(n, -0.01 * (k + 1))
+    data["v_rollover_kmh"] = np.full(n, 500.0) if roll is None else np.asarray(roll, float)
+    data["v_rollover_low_kmh"] = data["v_rollover_kmh"] - 10
+    data["v_rollover_high_kmh"] = data["v_rollover_kmh"] + 10
+    return pd.DataFrame(data)
+
+
+def test_hazards_mildest_excess_band_and_order():
+    curves = _table(
+        posted=[80, 80, 80, 80, np.nan, 80],
+        limits=[[120, 90, 70, 40],   # snow mildest, excess 10
+                [120, 100, 90, 79],  # ice only, excess 1 (inside the band)
+                [75, 60, 50, 30],    # dry, excess 5
+                [130, 110, 95, 85],  # nothing exceeded
+                [50, 40, 30, 20],    # no posted speed: never a hazard
+                [120, 70, 50, 30]],  # wet, excess 10
+    )
+    hz = hazards(curves, make_config())
+    assert list(hz["curve_id"]) == [3, 6, 1, 2]  # dry, wet, snow, ice
+    assert list(hz["severity_rank"]) == [1, 2, 3, 4]
+    assert list(hz["mildest_condition"]) == ["dry", "wet", "snow", "ice"]
+    assert hz.set_index("curve_id").loc[1, "exceeds_conditions"] == "snow,ice"
+    assert hz.set_index("curve_id").loc[3, "exceeds_conditions"] == "dry,wet,snow,ice"
+    row = hz.set_index("curve_id").loc[1]
+    assert row["excess_snow_kmh"] == 10 and row["excess_ice_kmh"] == 40
+    assert row["excess_wet_kmh"] == 0 and row["max_excess_kmh"] == 40
+    assert row["limit_kmh"] == 70 and row["limit_low_kmh"] == 65 and row["limit_high_kmh"] == 75
+    assert row["band_position"] == "above_band"  # 80 > 75
+    assert hz.set_index("curve_id").loc[2, "band_position"] == "inside_band"  # 80 < 84
+    assert row["friction_margin"] == pytest.approx(-0.03)  # snow column of the table
+    assert row["governing_mechanism"] == "slide"
+
+
+def test_rollover_only_exceedance_is_a_hazard():
+    curves = _table(posted=[90], limits=[[150, 120, 100, 95]], roll=[85])
+    hz = hazards(curves, make_config())
+    assert len(hz) == 1 and hz["excess_rollover_kmh"].iloc[0] == pytest.approx(5)
+
+
+def test_hazards_exactly_the_curves_over_a_limit(demo_result):
+    """Check the hazards layer against the curves layer read back from the GeoPackage."""
+    _, path = demo_result
+    curves = pyogrio.read_dataframe(path, layer="curves")
+    hz = pyogrio.read_dataframe(path, layer="hazards")
+    posted = curves["posted_kmh"].to_numpy(float)
+    cols = [f"v_{c}_limit_kmh" for c in CONDS] + ["v_rollover_kmh"]
+    over = np.zeros(len(curves), bool)
+    for c in cols:
+        over |= posted > curves[c].to_numpy(float)
+    assert set(hz["curve_id"]) == set(curves.loc[over, "curve_id"])
+    assert len(hz) == int(over.sum()) > 0
+    assert (hz["severity_rank"].to_numpy() == np.arange(1, len(hz) + 1)).all()
+    # severity: mildest condition order is non-decreasing down the layer
+    order = hz["mildest_condition"].map({c: k for k, c in enumerate(CONDS)}).to_numpy()
+    assert (np.diff(order) >= 0).all()
+    # curves carry the same mildest condition; null exactly where not a hazard
+    assert curves["mildest_condition"].notna().to_numpy().tolist() == over.tolist()
+
+
+def test_contract_fields_first_in_curves(demo_result):
+    _, path = demo_result
+    curves = pyogrio.read_dataframe(path, layer="curves")
+    head = ["curve_id", "src_fids", "radius_m", "radius_se_m", "length_m", "deflection_deg",
+            "direction", "fit_rmse_m", "superelevation", "superelevation_source", "grade",
+            "posted_kmh", "v_dry_kmh", "v_wet_kmh", "v_snow_kmh", "v_ice_kmh",
+            "v_comfort_kmh", "v_rollover_kmh"]
+    assert list(curves.columns[:len(head)]) == head
+    for extra in ("road_name", "approach_kmh", "speed_drop_kmh", "consistency",
+                  "mildest_condition", "winter_score", "winter_rank"):
+        assert extra in curves.columns
+
+
+def _chain(posted, comfort, starts, ends, chain=None, length=5000.0):
+    n = len(posted)
+    return pd.DataFrame({"chain_id": np.zeros(n, int) if chain is None else chain,
+                         "s_start_m": starts, "s_end_m": ends, "posted_kmh": posted,
+                         "v_comfort_kmh": comfort}), np.array([length, length])
+
+
+def test_lamm_classes_from_memory():
+    """Lamm Criterion II thresholds, 10 and 20 km/h (from memory: Lamm, Psarianos &
+    Mailaender 1999, Highway Design and Traffic Safety Engineering Handbook; REFERENCES.md
+    section 6, row M)."""
+    out = classify_drop(np.array([-5.0, 10.0, 10.5, 20.0, 20.1, np.nan]))
+    assert list(out) == ["good", "good", "fair", "fair", "poor", None]
+
+
+def test_consistency_uses_posted_then_previous_curve():
+    # three curves on one chain (5 km), posted 100, separated by 50 m tangents
+    curves, lengths = _chain(posted=[100.0, 100.0, 100.0], comfort=[85.0, 60.0, 55.0],
+                             starts=[500.0, 750.0, 950.0], ends=[700.0, 900.0, 1050.0])
+    out = consistency(curves, lengths, make_config(consistency_tangent_m=200.0))
+    # curve 1: approach 100 from the chain start (500 m tangent) -> drop 15: fair
+    assert out.loc[0, "speed_drop_kmh"] == pytest.approx(15.0)
+    assert out.loc[0, "consistency"] == "fair"
+    # curve 2: the 50 m tangent carries curve 1's comfort speed 85 -> drop 25: poor
+    assert out.loc[1, "approach_kmh"] == pytest.approx(85.0)
+    assert out.loc[1, "approach_source"] == "previous_curve"
+    assert out.loc[1, "approach_direction"] == "digitised"
+    assert out.loc[1, "speed_drop_kmh"] == pytest.approx(25.0)
+    assert out.loc[1, "consistency"] == "poor"
+    # (against the digitised direction curve 2 is approached from curve 3 at 55: no drop)
+    # curve 3: from the chain end, 3950 m of tangent at 100 -> drop 45 in reverse: poor
+    assert out.loc[2, "approach_direction"] == "reverse"
+    assert out.loc[2, "approach_tangent_m"] == pytest.approx(3950.0)
+    assert out.loc[2, "speed_drop_kmh"] == pytest.approx(45.0)
+    assert out.loc[2, "consistency"] == "poor"
+
+
+def test_consistency_reverse_direction_and_unknown():
+    # the sharp curve comes first; driving against the digitised direction, the approach
+    # to curve 1 is the chain end side. Posted unknown, previous comfort carries.
+    curves, lengths = _chain(posted=[np.nan, np.nan], comfort=[40.0, 90.0],
+                             starts=[100.0, 300.0], ends=[250.0, 400.0])
+    out = consistency(curves, lengths, make_config(consistency_tangent_m=200.0))
+    assert out.loc[0, "approach_direction"] == "reverse"
+    assert out.loc[0, "approach_kmh"] == pytest.approx(90.0)
+    assert out.loc[0, "speed_drop_kmh"] == pytest.approx(50.0)
+    assert out.loc[1, "speed_drop_kmh"] == pytest.approx(-50.0)
+    assert out.loc[1, "consistency"] == "good"
+    lone, lengths = _chain(posted=[np.nan], comfort=[50.0], starts=[100.0], ends=[200.0])
+    out = consistency(lone, lengths, make_config())
+    assert pd.isna(out.loc[0, "consistency"]) and np.isnan(out.loc[0, "speed_drop_kmh"])
+
+
+def test_run_record_summary_matches_layers(demo_result):
+    result, path = demo_result
+    run = pyogrio.read_dataframe(path, layer="run", read_geometry=False)
+    summary = json.loads(run["assessment"].iloc[0])
+    assert sum(summary["hazards_per_mildest_condition"].values()) == len(result.hazards)
+    assert sum(summary["hazards_per_mechanism"].values()) == len(result.hazards)
+    posted = result.curves["posted_kmh"].to_numpy(float)
+    for c in CONDS:
+        expected = int(np.sum(posted > result.curves[f"v_{c}_limit_kmh"].to_numpy(float)))
+        assert summary["exceeded_per_condition"][c] == expected
+    assert summary["worst_curves"][0]["curve_id"] == int(result.hazards["curve_id"].iloc[0])
+    assert "Lamm" in summary["consistency_criterion"]
+    speeds = json.loads(run["posted_speed"].iloc[0])
+    assert speeds["unparsed_values"] == {"national": 1}
+
+
+def test_rerank_after_merge(demo_result):
+    result, _ = demo_result
+    hz, winter = result.hazards, result.extra["winter"]
+    half = len(hz) // 2
+    merged = pd.concat([hz.iloc[half:], hz.iloc[:half]])
+    w = pd.concat([winter.iloc[3:], winter.iloc[:3]])
+    hz2, w2 = rerank(merged, w, list(CONDS))
+    assert list(hz2["curve_id"]) == list(hz["curve_id"])
+    assert list(w2["curve_id"]) == list(winter["curve_id"])
