@@ -19,7 +19,6 @@ SLD_NS = {"se": "http://www.opengis.net/se", "ogc": "http://www.opengis.net/ogc"
           "sld": "http://www.opengis.net/sld"}
 
 
-
 @pytest.fixture(scope="module")
 def demo_gpkg(tmp_path_factory):
     return scan_demo(tmp_path_factory)[1]
