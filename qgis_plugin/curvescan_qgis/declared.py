@@ -83,6 +83,23 @@ def load_stored_style(layer: Any) -> bool:
     return bool(ok)
 
 
+_LOADERS: list[StyleFromGeoPackage] = []
+
+
+def _style_loader() -> StyleFromGeoPackage:
+    """Return a new style post-processor, kept referenced from Python.
+
+    The Processing context takes ownership and deletes it; the Python side must still stay
+    alive until then, or QGIS calls a processor whose Python half is gone.
+    """
+    from qgis.PyQt import sip
+
+    _LOADERS[:] = [p for p in _LOADERS if not sip.isdeleted(p)]
+    loader = StyleFromGeoPackage()
+    _LOADERS.append(loader)
+    return loader
+
+
 class DeclaredAlgorithm(QgsProcessingAlgorithm):
     """Processing algorithm generated from a curvescan algorithm declaration."""
 
@@ -225,7 +242,7 @@ class DeclaredAlgorithm(QgsProcessingAlgorithm):
                                                         output_name)
             if layer_name != "run":
                 details.layerTypeHint = QgsProcessingUtils.LayerHint.Vector
-            details.setPostProcessor(StyleFromGeoPackage())  # context owns it
+            details.setPostProcessor(_style_loader())
             context.addLayerToLoadOnCompletion(f"{path}|layername={layer_name}", details)
 
     def _report(self, result: Any, feedback: Any) -> None:

@@ -346,6 +346,9 @@ def test_outputs_load_into_project_with_stored_styles(provider, demo_data, tmp_p
     # A style stored in the file (here by QGIS itself) is applied on loading.
     copy = tmp_path / "styled.gpkg"
     copy.write_bytes(out.read_bytes())
+    if has_styles:
+        with sqlite3.connect(copy) as con:
+            con.execute("DELETE FROM layer_styles")
     layer = QgsVectorLayer(f"{copy}|layername=curves", "curves", "ogr")
     _categorise(layer, "direction")
     assert layer.saveStyleToDatabase("curvescan", "test", True, "") in ("", None)
@@ -355,6 +358,7 @@ def test_outputs_load_into_project_with_stored_styles(provider, demo_data, tmp_p
     assert fresh.renderer().type() == "singleSymbol"
     assert load_stored_style(fresh)
     assert fresh.renderer().type() == "categorizedSymbol"
+    assert fresh.renderer().classAttribute() == "direction"
     plain = QgsVectorLayer(f"{copy}|layername=segments", "segments", "ogr",
                            QgsVectorLayer.LayerOptions(False))
     assert not load_stored_style(plain)
