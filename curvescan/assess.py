@@ -220,7 +220,7 @@ def hazards(curves: pd.DataFrame, config: Any) -> pd.DataFrame:
         out["excess_rollover_kmh"] = np.maximum(posted - out["v_rollover_kmh"].to_numpy(float),
                                                 0.0)
     out["max_excess_kmh"] = np.nanmax(np.where(over, excess, np.nan), axis=1)
-    idx = np.array([names.index(c) for c in out["mildest_condition"]], dtype=np.int64)
+    idx = out["mildest_condition"].map({c: k for k, c in enumerate(names)}).to_numpy(np.int64)
     rows = np.arange(m)
 
     def pick(pattern: str) -> np.ndarray:

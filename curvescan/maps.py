@@ -188,7 +188,7 @@ def profile_table(curves: pd.DataFrame, segments: pd.DataFrame,
         The curves of those chains with ``x0_km`` / ``x1_km`` on the same axis.
     """
     seg = segments.loc[segments["chain_id"].astype(int).isin(chain_ids)].copy()
-    seg["_order"] = [list(chain_ids).index(c) for c in seg["chain_id"].astype(int)]
+    seg["_order"] = seg["chain_id"].astype(int).map({c: k for k, c in enumerate(chain_ids)})
     seg = seg.sort_values(["_order", "s_start_m"])
     lengths = seg.groupby("_order")["s_end_m"].max()
     gap = 0.02 * float(lengths.sum())
