@@ -13,10 +13,12 @@ import numpy as np
 import pandas as pd
 
 from ..declare import Param
-from .circlefit import fit_circles
+from ._ragged import expand, group_quantile
+from .circular import Profile, circular_parts, cumulative_turn
+from .noise import vertex_noise
 from .pieces import piece_table, resolve_overlaps
 from .resample import chord_curvature, global_measure, make_stations, resample
-from .segment import find_runs, run_boundaries
+from .segment import find_runs
 from .stations import Stations
 
 __all__ = ["PARAMETERS", "GeometryResult", "find_curves", "Stations"]
@@ -38,10 +40,14 @@ PARAMETERS: tuple[Param, ...] = (
     Param("min_curve_length_m", "float", 5.0,
           "Shortest curve reported.", unit="m", stage="geometry", minimum=0.0,
           maximum=1000.0),
-    Param("circle_tolerance_m", "float", 0.10,
-          "Distance from the fitted circle within which a vertex still belongs to the "
-          "circular part (raised to three times the fit's RMSE on noisy data).", unit="m",
+    Param("circle_tolerance_m", "float", 0.005,
+          "Least distance from the fitted circle within which a vertex still belongs to the "
+          "circular part (raised to 2.5 times the vertex noise or fit RMSE).", unit="m",
           stage="geometry", minimum=0.001, maximum=10.0, advanced=True),
+    Param("min_significance", "float", 3.0,
+          "Keep a curve only when its curvature is this many standard errors from zero "
+          "(radius / radius standard error); rejects noise on straight roads.",
+          stage="geometry", minimum=0.0, maximum=100.0, advanced=True),
 )
 
 
@@ -78,7 +84,7 @@ def find_curves(chains: Any, config: Any) -> GeometryResult:
     config : ScanConfig
         Uses the geometry parameters (``station_spacing_m``, ``smoothing_length_m``,
         ``max_radius_m``, ``min_deflection_deg``, ``min_curve_length_m``,
-        ``circle_tolerance_m``).
+        ``circle_tolerance_m``, ``min_significance``).
 
     Returns
     -------
@@ -88,127 +94,230 @@ def find_curves(chains: Any, config: Any) -> GeometryResult:
     """
     spacing = config.station_spacing_m
     xy, s, chain, st_off = resample(chains.coords, chains.measure, chains.offsets, spacing)
-    half = _chain_half_windows(chains, spacing, config.smoothing_length_m)
-    kappa, heading = chord_curvature(xy, s, chain, st_off, half)
-    stations = make_stations(xy, s, chain, st_off, kappa, heading)
+    half_fine = _chain_half_windows(chains, spacing, config.smoothing_length_m)
+    kf, heading = chord_curvature(xy, s, chain, st_off, half_fine)
+    gm, base = global_measure(chains.measure, chains.offsets)
+    # noise per chain, with the sagitta of real curvature removed
+    k_wide, _ = chord_curvature(xy, s, chain, st_off, 3 * half_fine)
+    k_at_vertex = np.interp(gm, s + base[chain], k_wide)
+    sigma = vertex_noise(chains.coords, chains.offsets, chains.measure, k_at_vertex)
+    # detection scale: long enough that noise curvature stays well below 1/max_radius
+    det_m = np.sqrt(10.0 * sigma * config.max_radius_m)
+    half_det = np.maximum(half_fine, np.round(np.minimum(det_m, 150.0) / spacing).astype(np.int64))
+    kd, _ = chord_curvature(xy, s, chain, st_off, half_det)
+    stations = make_stations(xy, s, chain, st_off, kf, heading)
     kappa_on = 1.0 / config.max_radius_m
     first, last = find_runs(
-        kappa, s, chain, kappa_on=kappa_on, kappa_off=0.5 * kappa_on,
-        min_deflection_rad=np.radians(config.min_deflection_deg),
+        kd, s, chain, kappa_on=kappa_on, kappa_off=0.5 * kappa_on,
+        min_deflection_rad=0.5 * np.radians(config.min_deflection_deg),
         min_length_m=config.min_curve_length_m,
         merge_gap_m=0.5 * config.smoothing_length_m,
     )
-    curves = _measure_runs(chains, stations, first, last, half, config)
+    # curvature at several scales; each piece is read at the finest one its noise allows
+    max_half = np.maximum(np.round(150.0 / spacing).astype(np.int64), half_fine)
+    halves = [np.minimum(half_fine * f, max_half) for f in SCALE_FACTORS]
+    K = np.stack([kf] + [chord_curvature(xy, s, chain, st_off, h)[0] for h in halves[1:]])
+    prof = Profile(s=s, gs=s + base[chain], K=K, chain=chain, gm=gm, coords=chains.coords,
+                   v_off=chains.offsets, sigma=sigma,
+                   half_m=np.stack(halves).astype(float) * spacing)
+    idx, grp = expand(first, last - first + 1)
+    level = group_quantile(np.abs(K[1, idx]), grp, len(first), 0.9)
+    parts = circular_parts(prof, first, last, level,
+                           tolerance_floor_m=config.circle_tolerance_m,
+                           min_length_m=config.min_curve_length_m,
+                           min_deflection_rad=0.5 * np.radians(config.min_deflection_deg))
+    curves = _assemble(prof, parts, first, last, half_det * spacing, base, chains, config)
     segments = piece_table(chains, curves)
     return GeometryResult(stations=stations, curves=curves, segments=segments)
 
 
-def _vertices_between(gm: np.ndarray, lo: np.ndarray, hi: np.ndarray):
-    """Flat vertex indices with global measure in [lo, hi] per group, and group ids."""
-    i0 = np.searchsorted(gm, lo - 1e-9, side="left")
-    i1 = np.searchsorted(gm, hi + 1e-9, side="right")
-    counts = np.maximum(i1 - i0, 0)
-    grp = np.repeat(np.arange(len(lo)), counts)
-    idx = i0[grp] + (np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts))
-    return idx, grp, counts
+#: Multiples of the fine half window at which curvature is computed.
+SCALE_FACTORS = (1, 2, 4, 8)
+
+#: Prior weight (in degrees of freedom) of the chain's noise estimate when the radius
+#: standard error is computed from a fit with few vertices.
+PRIOR_DOF = 4.0
 
 
-def _measure_runs(chains, stations, first, last, half, config) -> pd.DataFrame:
-    s, kappa = stations.s, stations.curvature
-    n = len(first)
-    run_chain = stations.chain[first]
-    gm, base = global_measure(chains.measure, chains.offsets)
-    b = run_boundaries(kappa, s, first, last, core_fraction=0.85)
-    gbase = base[run_chain]
-    run_lo, run_hi = s[first] + gbase, s[last] + gbase
-    core_lo, core_hi = s[b["core_first"]] + gbase, s[b["core_last"]] + gbase
-    # vertices of the core; widen to the whole run where the core has too few
-    _, _, cnt = _vertices_between(gm, core_lo, core_hi)
-    few = cnt < 3
-    core_lo = np.where(few, run_lo, core_lo)
-    core_hi = np.where(few, run_hi, core_hi)
-    idx, grp, cnt = _vertices_between(gm, core_lo, core_hi)
-    fit = fit_circles(chains.coords[idx, 0], chains.coords[idx, 1], grp, n)
-    ridx, rgrp, _ = _vertices_between(gm, run_lo, run_hi)
-    lo_m, hi_m = core_lo.copy(), core_hi.copy()
-    for _ in range(3):
-        d = np.abs(np.hypot(chains.coords[ridx, 0] - fit.cx[rgrp],
-                            chains.coords[ridx, 1] - fit.cy[rgrp]) - fit.radius[rgrp])
-        tol = np.maximum(3.0 * np.nan_to_num(fit.rmse, nan=0.0), config.circle_tolerance_m)
-        bad = ~(d <= tol[rgrp])
-        lo_m, hi_m = _grow(gm[ridx], rgrp, bad, core_lo, core_hi, n)
-        idx, grp, cnt = _vertices_between(gm, lo_m, hi_m)
-        ok_groups = np.bincount(grp, minlength=n) >= 3
-        new = fit_circles(chains.coords[idx, 0], chains.coords[idx, 1], grp, n)
-        for name in ("cx", "cy", "radius", "radius_se", "rmse", "n"):
-            getattr(fit, name)[ok_groups] = getattr(new, name)[ok_groups]
-    circ_start = lo_m - gbase
-    circ_end = hi_m - gbase
-    # ramps: extrapolate the quarter and three-quarter crossings to zero curvature
-    hw = half[run_chain] * config.station_spacing_m
-    s25a, s75a = s[b["q25_first"]], s[b["q75_first"]]
-    s25b, s75b = s[b["q25_last"]], s[b["q75_last"]]
-    start = np.minimum(s25a - 0.5 * np.maximum(s75a - s25a, 0.0), circ_start)
-    end = np.maximum(s25b + 0.5 * np.maximum(s25b - s75b, 0.0), circ_end)
-    start = np.where(circ_start - start < 0.75 * hw, circ_start, start)
-    end = np.where(end - circ_end < 0.75 * hw, circ_end, end)
-    start = np.maximum(start, s[first] - hw)
-    end = np.minimum(end, s[last] + hw)
-    lengths = chains.lengths[run_chain]
-    start = np.clip(start, 0.0, lengths)
-    end = np.clip(end, 0.0, lengths)
-    step = np.r_[np.diff(s), 0.0]
-    step[np.r_[stations.chain[1:] != stations.chain[:-1], True]] = 0.0
-    csum = np.cumsum(kappa * step)
-    turn = csum[last] - np.where(first > 0, csum[first - 1], 0.0)
-    radius = fit.radius
-    keep = np.isfinite(radius) & (radius <= config.max_radius_m) & (radius > 0)
+#: Shares of the consensus tolerance and of the fit RMSE taken as a systematic offset of
+#: the vertices in the radius standard error; calibrated with benchmarks/accuracy.py so
+#: that two standard errors cover 90-98 % of true radii in every scenario.
+SYSTEMATIC_TOL_SHARE = 0.15
+SYSTEMATIC_RMSE_SHARE = 0.5
+
+
+def _radius_se(parts: dict, sigma_chain: np.ndarray, tolerance_floor_m: float) -> np.ndarray:
+    """Radius standard error with the fit's residual variance pooled with the chain noise.
+
+    ``radius_se`` from the fit is ``s * sqrt(C_rr)`` with ``s^2 = RSS/(n-3)``. The pooled
+    variance ``(RSS + nu0 * sigma^2) / (n - 3 + nu0)`` keeps a three- or four-vertex fit
+    from claiming a tiny error, and a Student-t factor makes two standard errors cover
+    about 95 %.
+    """
+    from scipy.stats import t as student
+
+    n = parts["n"].astype(float)
+    dof = np.maximum(n - 3.0, 0.0)
+    rss = parts["rmse"] ** 2 * n
+    sig = sigma_chain[parts["chain"].astype(np.int64)]
+    pooled = np.sqrt((rss + PRIOR_DOF * sig ** 2) / (dof + PRIOR_DOF))
+    factor = student.ppf(0.975, dof + PRIOR_DOF) / 2.0
+    statistical = parts["radius_sd_unit"] * pooled * factor
+    # systematic part: departures from the circle that the consensus tolerance lets in
+    # (transition vertices near the arc's ends) do not average out over the vertices
+    tol = np.maximum(2.5 * sig, tolerance_floor_m)
+    amplitude = np.maximum(SYSTEMATIC_TOL_SHARE * tol, SYSTEMATIC_RMSE_SHARE * parts["rmse"])
+    systematic = parts["radius_sd_unit"] * np.sqrt(n) * amplitude
+    return np.hypot(statistical, systematic)
+
+
+def _ramp_end(prof: Profile, a: np.ndarray, b: np.ndarray, level: np.ndarray, sign: np.ndarray,
+              scale: np.ndarray, outward: int) -> np.ndarray:
+    """Where the curvature ramp between stations ``a``..``b`` meets zero.
+
+    ``outward`` is -1 for the start side (search backward from ``b``) and +1 for the end
+    side (search forward from ``a``). The ramp is the line through the points where the
+    curvature crosses a quarter and three quarters of ``level``.
+    """
+    n = len(a)
+    idx, grp = expand(a, np.maximum(b - a + 1, 0))
+    k = prof.k(scale[grp], idx) * sign[grp]
+    out = {}
+    for frac in (0.25, 0.75):
+        below = k < frac * level[grp]
+        if outward < 0:
+            pos = np.full(n, -1)
+            np.maximum.at(pos, grp[below], idx[below])
+            pos = np.where(pos < 0, a, pos)
+        else:
+            pos = np.full(n, np.iinfo(np.int64).max)
+            np.minimum.at(pos, grp[below], idx[below])
+            pos = np.where(pos == np.iinfo(np.int64).max, b, pos)
+        out[frac] = prof.s[pos]
+    s25, s75 = out[0.25], out[0.75]
+    return s25 - 0.5 * (s75 - s25)
+
+
+def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.DataFrame:
+    """One curve per circular part: extents, transitions, deflection, fit quality."""
+    se = _radius_se(parts, prof.sigma, config.circle_tolerance_m)
+    radius = parts["radius"]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        significant = radius / se >= config.min_significance
+    keep = np.isfinite(radius) & (radius > 0) & (radius <= config.max_radius_m)
+    keep &= significant | ~np.isfinite(se)
+    p = {k: v[keep] for k, v in parts.items()}
+    se = se[keep]
+    order = np.lexsort((p["lo"], p["piece"]))
+    p = {k: v[order] for k, v in p.items()}
+    se = se[order]
+    n = len(order)
+    chain = p["chain"].astype(np.int64)
+    piece = p["piece"].astype(np.int64)
+    gbase = base[chain]
+    scale = p["scale"].astype(np.int64)
+    sign = np.sign(_piece_sign(prof, first[piece], last[piece]))
+    # the circular part lies where the fitted vertices are and the curvature is above
+    # half the circle's: with sparse vertices the fit reaches into the tangents
+    half_lo, half_hi = _half_level_extent(prof, p, sign, scale, gbase)
+    circ_start = np.maximum(p["lo"] - gbase, half_lo)
+    circ_end = np.minimum(p["hi"] - gbase, half_hi)
+    bad = circ_end <= circ_start
+    mid = 0.5 * (p["lo"] + p["hi"]) - gbase
+    circ_start = np.where(bad, mid, circ_start)
+    circ_end = np.where(bad, mid, circ_end)
+    level = 1.0 / p["radius"]
+    # neighbours within the same run (compound curves) meet halfway between their arcs
+    same_prev = np.r_[False, piece[1:] == piece[:-1]]
+    same_next = np.r_[piece[1:] == piece[:-1], False]
+    hw = half_det_m[chain]
+    run_lo = prof.s[first[piece]] - hw
+    run_hi = prof.s[last[piece]] + hw
+    a = np.searchsorted(prof.gs, np.maximum(run_lo, 0.0) + gbase, side="left")
+    b = np.searchsorted(prof.gs, p["lo"], side="right") - 1
+    start = np.minimum(_ramp_end(prof, a, np.maximum(b, a), level, sign, scale, -1), circ_start)
+    a2 = np.searchsorted(prof.gs, p["hi"], side="left")
+    b2 = np.searchsorted(prof.gs, run_hi + gbase, side="right") - 1
+    b2 = np.minimum(b2, prof.v_off.size and np.searchsorted(prof.gs, gbase + chains.lengths[chain], side="right") - 1)
+    end = np.maximum(_ramp_end(prof, a2, np.maximum(b2, a2), level, sign, scale, +1), circ_end)
+    fine = prof.half_m[scale, chain]
+    start = np.where(circ_start - start < 0.75 * fine, circ_start, start)
+    end = np.where(end - circ_end < 0.75 * fine, circ_end, end)
+    mid_next = 0.5 * (circ_end[:-1] + circ_start[1:])
+    end[:-1] = np.where(same_next[:-1], mid_next, end[:-1])
+    start[1:] = np.where(same_prev[1:], mid_next, start[1:])
+    lengths = chains.lengths[chain]
+    start = np.clip(np.maximum(start, run_lo), 0.0, lengths)
+    end = np.clip(np.minimum(end, run_hi), 0.0, lengths)
+    # deflection over the whole curve, from the curvature at the part's scale
+    i_s = np.searchsorted(prof.gs, start + gbase, side="left")
+    i_e = np.maximum(np.searchsorted(prof.gs, end + gbase, side="right") - 1, i_s)
+    turn = np.zeros(n)
+    for j in np.unique(scale):
+        m = scale == j
+        csum = cumulative_turn(prof, int(j))
+        turn[m] = csum[i_e[m]] - csum[i_s[m]]
     circ_len = circ_end - circ_start
-    circ_defl = np.degrees(circ_len / np.where(radius > 0, radius, np.nan))
-    rel_se = fit.radius_se / radius
+    circ_defl = np.degrees(circ_len / radius[keep][order])
+    rel_se = se / p["radius"]
+    nvert = p["n"].astype(int)
     reliability = np.where(
-        (fit.n < 4) | (circ_defl < 2.0) | ~(rel_se <= 0.25), "poor",
-        np.where((fit.n < 6) | ~(rel_se <= 0.10), "fair", "good"))
+        (nvert < 4) | (circ_defl < 2.0) | ~(rel_se <= 0.25), "poor",
+        np.where((nvert < 6) | ~(rel_se <= 0.10), "fair", "good"))
     frame = pd.DataFrame({
-        "chain_id": run_chain,
+        "chain_id": chain,
         "s_start_m": start,
         "s_end_m": end,
         "circ_start_m": circ_start,
         "circ_end_m": circ_end,
-        "radius_m": radius,
-        "radius_se_m": fit.radius_se,
+        "radius_m": p["radius"],
+        "radius_se_m": se,
         "length_m": end - start,
         "circular_length_m": circ_len,
         "transition_in_m": circ_start - start,
         "transition_out_m": end - circ_end,
         "deflection_deg": np.abs(np.degrees(turn)),
-        "direction": np.where(turn > 0, "left", "right"),
-        "fit_rmse_m": fit.rmse,
-        "fit_vertices": fit.n,
+        "direction": np.where(sign > 0, "left", "right"),
+        "fit_rmse_m": p["rmse"],
+        "fit_vertices": nvert,
         "reliability": reliability,
-        "center_x": fit.cx,
-        "center_y": fit.cy,
+        "noise_m": prof.sigma[chain],
+        "center_x": p["cx"],
+        "center_y": p["cy"],
     })
-    frame = resolve_overlaps(frame[keep])
+    ok = (frame["deflection_deg"] >= config.min_deflection_deg) & (
+        frame["length_m"] >= config.min_curve_length_m)
+    frame = resolve_overlaps(frame[ok.to_numpy()])
     frame.insert(0, "curve_id", np.arange(1, len(frame) + 1, dtype=np.int64))
     return frame
 
 
-def _grow(gmv, grp, bad, core_lo, core_hi, n):
-    """Measures of the first and last vertex of the contiguous good run around the core."""
-    inf = np.inf
-    bad_before = np.where(bad & (gmv < core_lo[grp]), gmv, -inf)
-    last_bad_before = np.full(n, -inf)
-    np.maximum.at(last_bad_before, grp, bad_before)
-    bad_after = np.where(bad & (gmv > core_hi[grp]), gmv, inf)
-    first_bad_after = np.full(n, inf)
-    np.minimum.at(first_bad_after, grp, bad_after)
-    good_lo = np.where(~bad & (gmv > last_bad_before[grp]), gmv, inf)
-    lo = np.full(n, inf)
-    np.minimum.at(lo, grp, good_lo)
-    good_hi = np.where(~bad & (gmv < first_bad_after[grp]), gmv, -inf)
-    hi = np.full(n, -inf)
-    np.maximum.at(hi, grp, good_hi)
-    lo = np.where(np.isfinite(lo), np.minimum(lo, core_lo), core_lo)
-    hi = np.where(np.isfinite(hi), np.maximum(hi, core_hi), core_hi)
-    return lo, hi
+def _half_level_extent(prof, p, sign, scale, gbase):
+    """Stretch around each part's middle where curvature stays above half of 1/R."""
+    n = len(sign)
+    a = np.searchsorted(prof.gs, p["lo"] - prof.half_m[scale, p["chain"].astype(np.int64)],
+                        side="left")
+    b = np.searchsorted(prof.gs, p["hi"] + prof.half_m[scale, p["chain"].astype(np.int64)],
+                        side="right") - 1
+    chain = p["chain"].astype(np.int64)
+    a = np.maximum(a, prof.v_off.size and np.searchsorted(prof.chain, chain, side="left"))
+    b = np.minimum(b, np.searchsorted(prof.chain, chain, side="right") - 1)
+    b = np.maximum(a, b)
+    centre = np.clip(np.searchsorted(prof.gs, 0.5 * (p["lo"] + p["hi"])), a, b)
+    idx, grp = expand(a, b - a + 1)
+    low = prof.k(scale[grp], idx) * sign[grp] < 0.5 / p["radius"][grp]
+    big = np.iinfo(np.int64).max
+    right = np.full(n, big)
+    sel = low & (idx > centre[grp])
+    np.minimum.at(right, grp[sel], idx[sel])
+    left = np.full(n, -1)
+    sel = low & (idx < centre[grp])
+    np.maximum.at(left, grp[sel], idx[sel])
+    hi = np.where(right == big, prof.gs[b], prof.gs[np.minimum(right, len(prof.gs) - 1)])
+    lo = np.where(left < 0, prof.gs[a], prof.gs[np.maximum(left, 0)])
+    return lo - gbase, hi - gbase
+
+
+def _piece_sign(prof, pf, pl):
+    csum = np.concatenate([[0.0], np.cumsum(prof.K[0])])
+    return csum[pl + 1] - csum[pf]

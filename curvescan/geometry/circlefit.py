@@ -32,6 +32,7 @@ class CircleFit:
     radius_se: np.ndarray
     rmse: np.ndarray
     n: np.ndarray
+    radius_sd_unit: np.ndarray  # sqrt of C_rr of (J^T J)^-1: radius SD per metre of noise
 
 
 def _sums(group: np.ndarray, values: np.ndarray, n_groups: int) -> np.ndarray:
@@ -146,13 +147,15 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = np.where(dof > 0, cost / np.maximum(dof, 1), np.nan)
         cov = np.linalg.pinv(JTJ)
-        se = np.sqrt(np.maximum(cov[:, 2, 2], 0.0) * s2)
+        unit = np.sqrt(np.maximum(cov[:, 2, 2], 0.0))
+        se = unit * np.sqrt(s2)
         rmse = np.sqrt(cost / n)
     bad = ~live
     cx, cy = a + mx, b + my
-    for arr in (cx, cy, r, se, rmse):
+    for arr in (cx, cy, r, se, rmse, unit):
         arr[bad] = np.nan
-    return CircleFit(cx=cx, cy=cy, radius=np.abs(r), radius_se=se, rmse=rmse, n=n.astype(int))
+    return CircleFit(cx=cx, cy=cy, radius=np.abs(r), radius_se=se, rmse=rmse, n=n.astype(int),
+                     radius_sd_unit=unit)
 
 
 def _dist(X, Y, group, a, b):

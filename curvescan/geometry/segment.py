@@ -1,17 +1,17 @@
-"""Segmentation of the curvature profile into curves, and the circular part of each.
+"""Segmentation of the curvature profile into curve runs.
 
-A curve is a run of stations whose smoothed curvature keeps one sign and exceeds a small
-threshold, long and turning enough to matter. Within a curve, the circular part starts as
-the stations near the curvature plateau and is then grown over the original vertices that
-lie on the fitted circle; what lies between the curve's ends and its circular part are the
-transitions. All steps are vectorised over runs with group-wise reductions.
+A curve run is a stretch of stations whose curvature (read at the noise-robust detection
+scale) keeps one sign and exceeds a small threshold, long and turning enough to matter.
+The circular parts inside each run are found by :mod:`curvescan.geometry.circular`.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["find_runs", "run_boundaries"]
+from ._ragged import expand
+
+__all__ = ["find_runs"]
 
 
 def _runs(label: np.ndarray, chain: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -74,47 +74,7 @@ def find_runs(kappa: np.ndarray, s: np.ndarray, chain: np.ndarray, *, kappa_on: 
 
 def _group_max(values: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
     """Maximum of ``values[starts[i]:ends[i] + 1]`` for each run."""
-    counts = ends - starts + 1
-    idx = np.repeat(starts, counts) + (np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts))
-    grp = np.repeat(np.arange(len(starts)), counts)
+    idx, grp = expand(starts, ends - starts + 1)
     out = np.full(len(starts), -np.inf)
     np.maximum.at(out, grp, values[idx])
-    return out
-
-
-def run_members(starts: np.ndarray, ends: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Flat station indices of all runs and the run id of each."""
-    counts = ends - starts + 1
-    grp = np.repeat(np.arange(len(starts)), counts)
-    idx = starts[grp] + (np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts))
-    return idx, grp
-
-
-def run_boundaries(kappa: np.ndarray, s: np.ndarray, starts: np.ndarray, ends: np.ndarray,
-                   core_fraction: float) -> dict[str, np.ndarray]:
-    """Plateau level and first/last station of the core and of the ramps of each run.
-
-    The plateau is the 75th percentile of ``|kappa|`` in the run; the core is where
-    ``|kappa| >= core_fraction * plateau``; ``q25``/``q75`` mark where the profile first
-    (last) crosses a quarter and three quarters of the plateau, for the ramp estimate.
-    """
-    idx, grp = run_members(starts, ends)
-    ak = np.abs(kappa[idx])
-    order = np.lexsort((ak, grp))
-    counts = ends - starts + 1
-    first = np.cumsum(counts) - counts
-    q = first + np.floor(0.75 * (counts - 1)).astype(np.int64)
-    plateau = ak[order][q]
-    lvl = plateau[grp]
-    out = {"plateau": plateau}
-    for name, frac in (("core", core_fraction), ("q25", 0.25), ("q75", 0.75)):
-        hit = ak >= frac * lvl
-        pos = np.where(hit, idx, np.iinfo(np.int64).max)
-        lo = np.full(len(starts), np.iinfo(np.int64).max)
-        np.minimum.at(lo, grp, pos)
-        pos = np.where(hit, idx, -1)
-        hi = np.full(len(starts), -1)
-        np.maximum.at(hi, grp, pos)
-        out[name + "_first"] = np.minimum(lo, ends)
-        out[name + "_last"] = np.maximum(hi, starts)
     return out

@@ -1,0 +1,39 @@
+"""Small helpers for ragged (grouped) index ranges, used across the geometry stage."""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["expand", "group_quantile", "group_argmax"]
+
+
+def expand(starts: np.ndarray, counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Flat indices ``starts[g] + 0 .. counts[g]-1`` for every group, and the group of each."""
+    counts = np.maximum(np.asarray(counts, dtype=np.int64), 0)
+    grp = np.repeat(np.arange(len(counts)), counts)
+    first = np.cumsum(counts) - counts
+    idx = np.asarray(starts, dtype=np.int64)[grp] + (np.arange(counts.sum()) - first[grp])
+    return idx, grp
+
+
+def group_quantile(values: np.ndarray, grp: np.ndarray, n: int, q: float) -> np.ndarray:
+    """The ``q`` quantile (lower value) of ``values`` within each group (NaN if empty)."""
+    order = np.lexsort((values, grp))
+    counts = np.bincount(grp, minlength=n)
+    first = np.cumsum(counts) - counts
+    out = np.full(n, np.nan)
+    has = counts > 0
+    pick = first[has] + np.floor(q * (counts[has] - 1)).astype(np.int64)
+    out[has] = values[order][pick]
+    return out
+
+
+def group_argmax(values: np.ndarray, grp: np.ndarray, n: int) -> np.ndarray:
+    """Position (into ``values``) of the largest value of each group (-1 if empty)."""
+    order = np.lexsort((values, grp))
+    counts = np.bincount(grp, minlength=n)
+    last = np.cumsum(counts) - 1
+    out = np.full(n, -1, dtype=np.int64)
+    has = counts > 0
+    out[has] = order[last[has]]
+    return out

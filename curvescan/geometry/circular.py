@@ -1,0 +1,350 @@
+"""Circular parts of curve runs: find the plateau, fit a circle, grow it over the vertices.
+
+Works on "pieces" (station ranges of one sign of curvature), all at once:
+
+1. **Core**: the contiguous stretch around the curvature peak where ``|kappa|`` stays
+   above 80 % of the piece's 90th percentile.
+2. **Fit**: hyper fit plus geometric refinement of the original vertices of the core
+   (widened to at least three vertices).
+3. **Grow**: the circular part spreads outward over vertices that lie within a tolerance
+   of the circle (2.5 times the larger of the chain's vertex noise and the fit's RMSE, at
+   least ``circle_tolerance_m``); one stray vertex does not stop it, two in a row do. The
+   circle is refitted on what it grew over.
+4. **Peel**: what is left of the piece on either side of the circular part (beyond the
+   curvature window, which blurs the join) becomes a new piece. In later rounds a piece
+   becomes a circular part only when its curvature is a plateau, not a ramp: this finds
+   the second arc of a compound curve but not a transition.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ._ragged import expand, group_argmax, group_quantile
+from .circlefit import CircleFit, fit_circles
+
+__all__ = ["Profile", "circular_parts"]
+
+#: A piece found after the first round must be this flat: relative change of curvature
+#: across it (slope times length over mean) below this value.
+PLATEAU_CHANGE = 0.6
+ROUNDS = 3
+#: Vertices a seed fit takes at least (where the piece has them).
+SEED_VERTICES = 5
+
+
+@dataclass
+class Profile:
+    """Station and vertex arrays the circular-part search reads."""
+
+    s: np.ndarray  # station measure along its chain (m)
+    gs: np.ndarray  # station global measure (m)
+    K: np.ndarray  # curvature (1/m) at each scale: shape (n_scales, n_stations)
+    chain: np.ndarray  # station chain
+    gm: np.ndarray  # vertex global measure (m)
+    coords: np.ndarray  # vertex coordinates (m)
+    v_off: np.ndarray  # chain vertex offsets
+    sigma: np.ndarray  # per-chain vertex noise (m)
+    half_m: np.ndarray  # curvature half window (m) per scale and chain: (n_scales, n_chains)
+
+    def k(self, scale: np.ndarray, idx: np.ndarray) -> np.ndarray:
+        """Curvature at stations ``idx``, each at its own scale index."""
+        return self.K[scale, idx]
+
+    def choose_scale(self, level: np.ndarray, chain: np.ndarray) -> np.ndarray:
+        """Smallest scale whose curvature noise stays under a tenth of ``level``.
+
+        Chord curvature from stations ``B`` apart carries noise of about
+        ``sqrt(6) sigma / B^2``; asking for ten times less than the curvature level gives
+        ``B >= sqrt(10 sqrt(6) sigma / level)``.
+        """
+        need = np.sqrt(24.5 * self.sigma[chain] / np.maximum(np.abs(level), 1e-9))
+        ok = self.half_m[:, chain] >= need[None, :]
+        first_ok = np.where(ok.any(axis=0), ok.argmax(axis=0), self.K.shape[0] - 1)
+        return first_ok.astype(np.int64)
+
+
+def _core(prof: Profile, pf: np.ndarray, pl: np.ndarray, scale: np.ndarray):
+    """First and last station of the plateau core of each piece.
+
+    Read at the next smoother scale, the core is the stretch above 80 % of the piece's
+    90th-percentile curvature that turns the most (largest sum of curvature), so a noise
+    spike cannot seed the fit.
+    """
+    n = len(pf)
+    idx, grp = expand(pf, pl - pf + 1)
+    smooth = np.minimum(scale + 1, prof.K.shape[0] - 1)
+    ak = np.abs(prof.k(smooth[grp], idx))
+    level = group_quantile(ak, grp, n, 0.9)
+    hit = ak >= 0.8 * level[grp]
+    brk = np.ones(len(idx), dtype=bool)
+    brk[1:] = (hit[1:] != hit[:-1]) | (grp[1:] != grp[:-1])
+    lab = np.cumsum(brk) - 1
+    weight = np.bincount(lab, np.where(hit, ak, 0.0))
+    best = group_argmax(weight[lab], grp, n)
+    target = lab[best]
+    inside = lab == target[grp]
+    first = np.full(n, np.iinfo(np.int64).max)
+    last = np.full(n, -1)
+    np.minimum.at(first, grp[inside], idx[inside])
+    np.maximum.at(last, grp[inside], idx[inside])
+    return first, last
+
+
+def _vertex_range(prof: Profile, lo: np.ndarray, hi: np.ndarray, vlo: np.ndarray,
+                  vhi: np.ndarray, minimum: int = 3):
+    """Vertex index range [i0, i1) with measures in [lo, hi], widened to ``minimum``
+    vertices within [vlo, vhi)."""
+    i0 = np.searchsorted(prof.gm, lo - 1e-9, side="left")
+    i1 = np.searchsorted(prof.gm, hi + 1e-9, side="right")
+    i0, i1 = np.maximum(i0, vlo), np.minimum(i1, vhi)
+    i1 = np.maximum(i1, i0)
+    for _ in range(minimum):
+        short = (i1 - i0) < minimum
+        grow_left = short & (i0 > vlo)
+        i0 = np.where(grow_left, i0 - 1, i0)
+        short = (i1 - i0) < minimum
+        grow_right = short & (i1 < vhi)
+        i1 = np.where(grow_right, i1 + 1, i1)
+    return i0, i1
+
+
+def _fit(prof: Profile, i0: np.ndarray, i1: np.ndarray) -> CircleFit:
+    idx, grp = expand(i0, i1 - i0)
+    return fit_circles(prof.coords[idx, 0], prof.coords[idx, 1], grp, len(i0))
+
+
+def _consensus(prof: Profile, fit: CircleFit, centre: np.ndarray, vlo, vhi, tol):
+    """The run of vertices within ``tol`` of the circle around the ``centre`` vertex.
+
+    The run may pass over one stray vertex but stops at two bad ones in a row, so the
+    circular part both grows over good vertices and sheds bad ones at its ends.
+    """
+    n = len(centre)
+    idx, grp = expand(vlo, vhi - vlo)
+    d = np.abs(np.hypot(prof.coords[idx, 0] - fit.cx[grp], prof.coords[idx, 1] - fit.cy[grp])
+               - fit.radius[grp])
+    bad = ~(d <= tol[grp])
+    same_next = np.r_[grp[1:] == grp[:-1], False]
+    same_prev = np.r_[False, grp[1:] == grp[:-1]]
+    nxt_bad = np.r_[bad[1:], True] | ~same_next
+    prv_bad = np.r_[True, bad[:-1]] | ~same_prev
+    stop_right = bad & nxt_bad
+    stop_left = bad & prv_bad
+    big = np.iinfo(np.int64).max
+    right = np.full(n, big)
+    sel = stop_right & (idx > centre[grp])
+    np.minimum.at(right, grp[sel], idx[sel])
+    left = np.full(n, -1)
+    sel = stop_left & (idx < centre[grp])
+    np.maximum.at(left, grp[sel], idx[sel])
+    i1 = np.where(right == big, vhi, right)
+    i0 = np.where(left < 0, vlo, left + 1)
+    # a single bad vertex at either end of the run is not part of it
+    end_bad = np.zeros(n, dtype=bool)
+    pos_last = np.clip(i1 - 1 - vlo, 0, None)
+    pos_first = np.clip(i0 - vlo, 0, None)
+    starts = np.cumsum(vhi - vlo) - (vhi - vlo)
+    valid = vhi > vlo
+    last_bad = np.zeros(n, dtype=bool)
+    first_bad = np.zeros(n, dtype=bool)
+    last_bad[valid] = bad[(starts + pos_last)[valid]]
+    first_bad[valid] = bad[(starts + pos_first)[valid]]
+    i1 = np.where(last_bad & (i1 - 1 > centre), i1 - 1, i1)
+    i0 = np.where(first_bad & (i0 < centre), i0 + 1, i0)
+    del end_bad
+    return i0, i1
+
+
+def _station_at(prof: Profile, g: np.ndarray, side: str) -> np.ndarray:
+    return np.searchsorted(prof.gs, g, side=side)
+
+
+def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndarray, *,
+                   tolerance_floor_m: float, min_length_m: float,
+                   min_deflection_rad: float) -> dict[str, np.ndarray]:
+    """Circular parts of the pieces ``[pf, pl]`` (station indices), found in rounds.
+
+    ``level`` is a first estimate of each piece's curvature (1/m), used to choose the
+    scale at which the piece's curvature is read (see :meth:`Profile.choose_scale`).
+
+    Returns a dict of arrays, one entry per circular part: ``piece`` (index of the
+    original piece), ``chain``, ``scale``, ``lo``/``hi`` (global measure of the first/last
+    vertex of the part), ``i0``/``i1`` (vertex range), ``round`` and the fit (``cx``,
+    ``cy``, ``radius``, ``radius_se``, ``radius_sd_unit``, ``rmse``, ``n``).
+    """
+    out: list[dict[str, np.ndarray]] = []
+    origin = np.arange(len(pf))
+    chain = prof.chain[pf] if len(pf) else np.zeros(0, dtype=np.int64)
+    scale = prof.choose_scale(level, chain)
+    sign = np.sign(_piece_integral(prof, pf, pl, scale))
+    fields = ("cx", "cy", "radius", "radius_se", "radius_sd_unit", "rmse", "n")
+    for rnd in range(ROUNDS):
+        keep = pl - pf >= 2
+        pf, pl, origin, sign, scale = pf[keep], pl[keep], origin[keep], sign[keep], scale[keep]
+        if len(pf) == 0:
+            break
+        chain = prof.chain[pf]
+        vlo = np.maximum(np.searchsorted(prof.gm, prof.gs[pf] - 1e-9, side="left"),
+                         prof.v_off[chain])
+        vhi = np.minimum(np.searchsorted(prof.gm, prof.gs[pl] + 1e-9, side="right"),
+                         prof.v_off[chain + 1])
+        # a piece may fall between two vertices: reach out to the chain's vertices
+        short = vhi - vlo < 3
+        vlo = np.where(short, np.maximum(vlo - 2, prof.v_off[chain]), vlo)
+        vhi = np.where(short, np.minimum(vhi + 2, prof.v_off[chain + 1]), vhi)
+        cf, cl = _core(prof, pf, pl, scale)
+        i0, i1 = _vertex_range(prof, prof.gs[cf], prof.gs[cl], vlo, vhi, minimum=SEED_VERTICES)
+        centre_m = 0.5 * (prof.gs[cf] + prof.gs[cl])
+        centre = np.clip(np.searchsorted(prof.gm, centre_m), i0, np.maximum(i1 - 1, i0))
+        fit = _fit(prof, i0, i1)
+        for _ in range(4):
+            tol = np.maximum(2.5 * prof.sigma[chain], tolerance_floor_m)
+            g0, g1 = _consensus(prof, fit, centre, vlo, vhi, tol)
+            usable = (g1 - g0 >= 3) & np.isfinite(fit.radius)
+            g0, g1 = np.where(usable, g0, i0), np.where(usable, g1, i1)
+            changed = (g0 != i0) | (g1 != i1)
+            i0, i1 = g0, g1
+            new = _fit(prof, i0, i1)
+            ok = np.isfinite(new.radius)
+            for name in fields:
+                getattr(fit, name)[ok] = getattr(new, name)[ok]
+            if not changed.any():
+                break
+        lo = prof.gm[i0]
+        hi = prof.gm[np.maximum(i1 - 1, i0)]
+        accept = np.isfinite(fit.radius) & (i1 - i0 >= 3)
+        if rnd > 0:
+            accept &= _is_plateau(prof, lo, hi, sign, scale, fit.radius)
+        out.append({"piece": origin[accept], "chain": chain[accept], "scale": scale[accept],
+                    "lo": lo[accept], "hi": hi[accept], "i0": i0[accept], "i1": i1[accept],
+                    "round": np.full(accept.sum(), rnd),
+                    **{k: getattr(fit, k)[accept] for k in fields}})
+        # peel: the rest of each piece beyond the curvature window on either side
+        gap = prof.half_m[scale, chain]
+        left_end = _station_at(prof, lo - gap, "right") - 1
+        right_start = _station_at(prof, hi + gap, "left")
+        found = accept | (rnd == 0)
+        new_pf = np.concatenate([pf[found], right_start[found]])
+        new_pl = np.concatenate([left_end[found], pl[found]])
+        new_origin = np.concatenate([origin[found], origin[found]])
+        new_sign = np.concatenate([sign[found], sign[found]])
+        last = len(prof.s) - 1
+        valid = (new_pl > new_pf) & (prof.chain[np.clip(new_pf, 0, last)] ==
+                                     prof.chain[np.clip(new_pl, 0, last)])
+        new_pf, new_pl = new_pf[valid], new_pl[valid]
+        new_origin, new_sign = new_origin[valid], new_sign[valid]
+        new_chain = prof.chain[new_pf]
+        new_scale = prof.choose_scale(_piece_level(prof, new_pf, new_pl), new_chain)
+        length = prof.s[new_pl] - prof.s[new_pf]
+        turn = _piece_integral(prof, new_pf, new_pl, new_scale)
+        worth = (length >= max(min_length_m, 1e-9)) & (turn * new_sign >= min_deflection_rad)
+        pf, pl, origin = new_pf[worth], new_pl[worth], new_origin[worth]
+        sign, scale = new_sign[worth], new_scale[worth]
+    if not out:
+        return {k: np.zeros(0) for k in ("piece", "chain", "scale", "lo", "hi", "i0", "i1",
+                                           "round") + fields}
+    parts = {k: np.concatenate([o[k] for o in out]) for k in out[0]}
+    return merge_fragments(prof, parts, tolerance_floor_m)
+
+
+def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
+                    tolerance_floor_m: float) -> dict[str, np.ndarray]:
+    """Join neighbouring circular parts of one run that lie on one circle.
+
+    Noise can break one arc into pieces; two neighbours are one arc when a single circle
+    through all their vertices (and those between) fits about as well as each alone.
+    A compound curve's arcs do not: their joint fit is far worse.
+    """
+    fields = ("cx", "cy", "radius", "radius_se", "radius_sd_unit", "rmse", "n")
+    for _ in range(4):
+        order = np.lexsort((parts["lo"], parts["piece"]))
+        parts = {k: v[order] for k, v in parts.items()}
+        n = len(parts["lo"])
+        if n < 2:
+            return parts
+        a = np.arange(n - 1)
+        b = a + 1
+        same = parts["piece"][a] == parts["piece"][b]
+        if not same.any():
+            return parts
+        a, b = a[same], b[same]
+        i0 = np.minimum(parts["i0"][a], parts["i0"][b]).astype(np.int64)
+        i1 = np.maximum(parts["i1"][a], parts["i1"][b]).astype(np.int64)
+        joint = _fit(prof, i0, i1)
+        chain = parts["chain"][a].astype(np.int64)
+        base = np.maximum.reduce([prof.sigma[chain], parts["rmse"][a], parts["rmse"][b],
+                                  np.full(len(a), tolerance_floor_m / 2.5)])
+        merge = np.isfinite(joint.radius) & (joint.rmse <= 1.3 * base)
+        # never merge overlapping pairs in one pass: take every other candidate in a run
+        take = merge.copy()
+        take[1:] &= ~(merge[:-1] & (b[:-1] == a[1:]))
+        if not take.any():
+            return parts
+        a, b, i0, i1 = a[take], b[take], i0[take], i1[take]
+        for k in fields:
+            parts[k][a] = getattr(joint, k)[take]
+        parts["i0"][a], parts["i1"][a] = i0, i1
+        parts["lo"][a] = prof.gm[i0]
+        parts["hi"][a] = prof.gm[i1 - 1]
+        parts["scale"][a] = np.minimum(parts["scale"][a], parts["scale"][b])
+        keep = np.ones(n, dtype=bool)
+        keep[b] = False
+        parts = {k: v[keep] for k, v in parts.items()}
+    return parts
+
+
+def cumulative_turn(prof: Profile, scale: int) -> np.ndarray:
+    """Running heading change (rad) along stations at one curvature scale, chain by chain."""
+    step = np.r_[np.diff(prof.s), 0.0]
+    step[np.r_[prof.chain[1:] != prof.chain[:-1], True]] = 0.0
+    return np.concatenate([[0.0], np.cumsum(prof.K[scale] * step)])
+
+
+def _piece_integral(prof: Profile, pf: np.ndarray, pl: np.ndarray,
+                    scale: np.ndarray) -> np.ndarray:
+    """Signed heading change (rad) over stations pf..pl at each piece's scale."""
+    out = np.zeros(len(pf))
+    for j in np.unique(scale):
+        m = scale == j
+        csum = cumulative_turn(prof, int(j))
+        out[m] = csum[pl[m]] - csum[pf[m]]
+    return out
+
+
+def _piece_level(prof: Profile, pf: np.ndarray, pl: np.ndarray) -> np.ndarray:
+    """90th percentile of |curvature| at the finest scale within each piece."""
+    idx, grp = expand(pf, pl - pf + 1)
+    return group_quantile(np.abs(prof.K[0, idx]), grp, len(pf), 0.9)
+
+
+def _is_plateau(prof: Profile, lo: np.ndarray, hi: np.ndarray, sign: np.ndarray,
+                scale: np.ndarray, radius: np.ndarray) -> np.ndarray:
+    """Whether the curvature over [lo, hi] is flat (an arc) rather than a ramp.
+
+    Only the interior is read, a curvature window in from each end (the window blurs
+    whatever lies beyond), or the middle half where the part is shorter than that.
+    """
+    chain = prof.chain[np.clip(_station_at(prof, lo, "left"), 0, len(prof.s) - 1)]
+    inset = np.minimum(prof.half_m[scale, chain], 0.25 * (hi - lo))
+    lo, hi = lo + inset, hi - inset
+    f = _station_at(prof, lo, "left")
+    last = np.maximum(_station_at(prof, hi, "right") - 1, f)
+    idx, grp = expand(f, last - f + 1)
+    n = len(lo)
+    k = prof.k(scale[grp], idx) * sign[grp]
+    x = prof.s[idx]
+    cnt = np.bincount(grp, minlength=n).astype(float)
+    sx = np.bincount(grp, x, n)
+    sk = np.bincount(grp, k, n)
+    sxx = np.bincount(grp, x * x, n)
+    sxk = np.bincount(grp, x * k, n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        var = sxx - sx * sx / cnt
+        slope = np.where(var > 0, (sxk - sx * sk / cnt) / var, 0.0)
+        mean = sk / cnt
+        change = np.abs(slope) * (hi - lo) / np.abs(mean)
+        consistent = np.abs(mean * radius - 1.0) < 0.5
+    return (mean > 0) & (change < PLATEAU_CHANGE) & consistent
