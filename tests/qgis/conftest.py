@@ -56,16 +56,21 @@ def qgis_app(tmp_path_factory):
 
 
 @pytest.fixture(scope="session")
-def plugin_dir(tmp_path_factory):
-    """The plugin as a user gets it: the built zip, extracted into a plugins folder."""
+def plugin_zip(tmp_path_factory):
+    """The installable zip, built by ``qgis_plugin/build_zip.py`` (needs no QGIS)."""
     sys.path.insert(0, str(ROOT / "qgis_plugin"))
     try:
         import build_zip
     finally:
         sys.path.pop(0)
+    return build_zip.build(tmp_path_factory.mktemp("dist"))
+
+
+@pytest.fixture(scope="session")
+def plugin_dir(tmp_path_factory, plugin_zip):
+    """The plugin as a user gets it: the built zip, extracted into a plugins folder."""
     dest = tmp_path_factory.mktemp("plugins")
-    archive = build_zip.build(tmp_path_factory.mktemp("dist"))
-    with zipfile.ZipFile(archive) as zf:
+    with zipfile.ZipFile(plugin_zip) as zf:
         zf.extractall(dest)
     return dest
 

@@ -419,3 +419,39 @@ def test_edit_vehicle_then_scan_with_it(provider, demo_data, tmp_path):
                                               "name": "gritter", "remove": True},
                    feedback=_feedback())
     assert "gritter" not in load_presets(presets).vehicles
+
+
+def test_without_curvescan_the_plugin_says_how_to_install(qgis_app, plugin_dir, tmp_path):
+    """QGIS starting the plugin where curvescan is not importable: a message, no crash."""
+    script = tmp_path / "start.py"
+    script.write_text(f"""
+import os, sys
+os.environ["QT_QPA_PLATFORM"] = "offscreen"
+for key in ("QGIS_CUSTOM_CONFIG_PATH", "XDG_CONFIG_HOME"):
+    os.environ[key] = {str(tmp_path)!r}
+sys.modules["curvescan"] = None  # as if not installed
+sys.path.append("/usr/share/qgis/python/plugins")
+from qgis.core import QgsApplication, QgsMessageLog
+QgsApplication.setPrefixPath("/usr", True)
+app = QgsApplication([], False)
+app.initQgis()
+messages = []
+QgsApplication.messageLog().messageReceived.connect(
+    lambda text, tag, level: messages.append((tag, text)))
+import qgis.utils
+sys.path.insert(0, {str(plugin_dir)!r})
+qgis.utils.plugin_paths.insert(0, {str(plugin_dir)!r})
+qgis.utils.updateAvailablePlugins()
+assert qgis.utils.loadPlugin("curvescan_qgis")
+assert qgis.utils.startProcessingPlugin("curvescan_qgis")
+print("PROVIDER", QgsApplication.processingRegistry().providerById("curvescan"))
+print("MESSAGES", messages)
+sys.stdout.flush()
+os._exit(0)
+""")
+    res = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                         timeout=120)
+    assert res.returncode == 0, res.stderr
+    assert "PROVIDER None" in res.stdout
+    assert "curvescan is not installed in the Python QGIS uses" in res.stdout
+    assert "pip install curvescan" in res.stdout
