@@ -231,14 +231,23 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     same_prev = np.r_[False, piece[1:] == piece[:-1]]
     same_next = np.r_[piece[1:] == piece[:-1], False]
     hw = half_det_m[chain]
+    lengths = chains.lengths[chain]
+    # where to look for each transition: from the circular part outward, as far again as
+    # the run reaches beyond it (a gentle transition starts below the run threshold), but
+    # not past the neighbouring circular part on the chain
     run_lo = prof.s[first[piece]] - hw
     run_hi = prof.s[last[piece]] + hw
-    a = np.searchsorted(prof.gs, np.maximum(run_lo, 0.0) + gbase, side="left")
+    chain_prev = np.r_[False, chain[1:] == chain[:-1]]
+    chain_next = np.r_[chain[1:] == chain[:-1], False]
+    prev_end = np.where(chain_prev, np.r_[0.0, circ_end[:-1]], 0.0)
+    next_start = np.where(chain_next, np.r_[circ_start[1:], 0.0], lengths)
+    look_lo = np.maximum(circ_start - 2.0 * np.maximum(circ_start - run_lo, 0.0), prev_end)
+    look_hi = np.minimum(circ_end + 2.0 * np.maximum(run_hi - circ_end, 0.0), next_start)
+    a = np.searchsorted(prof.gs, np.maximum(look_lo, 0.0) + gbase, side="left")
     b = np.searchsorted(prof.gs, p["lo"], side="right") - 1
     start = np.minimum(_ramp_end(prof, a, np.maximum(b, a), level, sign, scale, -1), circ_start)
     a2 = np.searchsorted(prof.gs, p["hi"], side="left")
-    b2 = np.searchsorted(prof.gs, run_hi + gbase, side="right") - 1
-    b2 = np.minimum(b2, prof.v_off.size and np.searchsorted(prof.gs, gbase + chains.lengths[chain], side="right") - 1)
+    b2 = np.searchsorted(prof.gs, np.minimum(look_hi, lengths) + gbase, side="right") - 1
     end = np.maximum(_ramp_end(prof, a2, np.maximum(b2, a2), level, sign, scale, +1), circ_end)
     fine = prof.half_m[scale, chain]
     start = np.where(circ_start - start < 0.75 * fine, circ_start, start)
@@ -246,12 +255,20 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     mid_next = 0.5 * (circ_end[:-1] + circ_start[1:])
     end[:-1] = np.where(same_next[:-1], mid_next, end[:-1])
     start[1:] = np.where(same_prev[1:], mid_next, start[1:])
-    lengths = chains.lengths[chain]
-    start = np.clip(np.maximum(start, run_lo), 0.0, lengths)
-    end = np.clip(np.minimum(end, run_hi), 0.0, lengths)
-    # deflection over the whole curve, from the curvature at the part's scale
-    i_s = np.searchsorted(prof.gs, start + gbase, side="left")
-    i_e = np.maximum(np.searchsorted(prof.gs, end + gbase, side="right") - 1, i_s)
+    start = np.clip(np.maximum(start, look_lo), 0.0, lengths)
+    end = np.clip(np.minimum(end, look_hi), 0.0, lengths)
+    # deflection over the whole curve, from the curvature at the part's scale; the
+    # window blurs curvature up to one half window beyond the curve's ends, so the sum
+    # reaches that far, but never into the neighbouring curve of the same chain
+    reach = prof.half_m[scale, chain]
+    same_chain_prev = np.r_[False, chain[1:] == chain[:-1]]
+    same_chain_next = np.r_[chain[1:] == chain[:-1], False]
+    lo_lim = np.where(same_chain_prev, np.r_[0.0, end[:-1]], 0.0)
+    hi_lim = np.where(same_chain_next, np.r_[start[1:], 0.0], lengths)
+    ext_lo = np.maximum(start - reach, np.maximum(lo_lim, 0.5 * (lo_lim + start)))
+    ext_hi = np.minimum(end + reach, np.minimum(hi_lim, 0.5 * (hi_lim + end)))
+    i_s = np.searchsorted(prof.gs, ext_lo + gbase, side="left")
+    i_e = np.maximum(np.searchsorted(prof.gs, ext_hi + gbase, side="right") - 1, i_s)
     turn = np.zeros(n)
     for j in np.unique(scale):
         m = scale == j

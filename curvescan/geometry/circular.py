@@ -31,6 +31,8 @@ __all__ = ["Profile", "circular_parts"]
 #: across it (slope times length over mean) below this value.
 PLATEAU_CHANGE = 0.6
 ROUNDS = 3
+#: Share of a later-round piece that its circular part must cover.
+PIECE_COVER = 0.4
 #: Vertices a seed fit takes at least (where the piece has them).
 SEED_VERTICES = 5
 
@@ -217,7 +219,10 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         hi = prof.gm[np.maximum(i1 - 1, i0)]
         accept = np.isfinite(fit.radius) & (i1 - i0 >= 3)
         if rnd > 0:
-            accept &= _is_plateau(prof, lo, hi, sign, scale, fit.radius)
+            # a second arc must fill much of what is left, and be flat: a stretch of a
+            # transition fits a circle only over a short part of the piece
+            cover = (hi - lo) >= PIECE_COVER * (prof.gs[pl] - prof.gs[pf])
+            accept &= cover & _is_plateau(prof, lo, hi, sign, scale, fit.radius)
         out.append({"piece": origin[accept], "chain": chain[accept], "scale": scale[accept],
                     "lo": lo[accept], "hi": hi[accept], "i0": i0[accept], "i1": i1[accept],
                     "round": np.full(accept.sum(), rnd),

@@ -1,0 +1,214 @@
+"""Geometry stage: curves, circular parts and radii on alignments with exact truth.
+
+Truth comes from the exact alignment generator (clothoids by Fresnel integrals, checked
+in test_synthetic.py), never from the code under test.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import geopandas as gpd
+import numpy as np
+import pytest
+import shapely
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from curvescan.config import make_config
+from curvescan.errors import DataQualityWarning
+from curvescan.geometry import find_curves
+from curvescan.geometry.noise import vertex_noise
+from curvescan.prepare import prepare
+from curvescan.read import load
+from curvescan.synthetic import Element, build, curve_elements, vertices
+
+from .conftest import UTM, frame_from_lines, simple_curve
+
+CRS = UTM
+
+
+def _curves(lines, **params):
+    frame = frame_from_lines(lines)
+    cfg = make_config(crs=CRS, **params)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataQualityWarning)
+        chains = prepare(load(frame, cfg), cfg)
+    return find_curves(chains, cfg)
+
+
+def _digitise(al, spacing=10.0):
+    s = np.append(np.arange(0, al.length_m, spacing), al.length_m)
+    return al.points(s)
+
+
+@pytest.mark.parametrize("radius", [45.0, 150.0, 600.0, 1400.0])
+@pytest.mark.parametrize("spiral_share", [0.0, 0.3])
+def test_simple_curve_radius_and_extent(radius, spiral_share):
+    deflection = 40.0 if radius < 1000 else 25.0
+    spiral = spiral_share * radius * np.radians(deflection)  # transitions take 30 %
+    al = simple_curve(radius, deflection, spiral_m=spiral, tangent_m=300.0)
+    geo = _curves([_digitise(al, 5.0)])
+    assert len(geo.curves) == 1
+    c = geo.curves.iloc[0]
+    assert c["radius_m"] == pytest.approx(radius, rel=0.002)
+    truth = al.truth().iloc[0]
+    assert c["direction"] == "left"
+    assert c["deflection_deg"] == pytest.approx(truth["deflection_deg"], abs=1.5)
+    # a gentle transition stays within millimetres of the circle for a while
+    tol = max(12.0, 0.12 * spiral)
+    assert c["circ_start_m"] == pytest.approx(truth["circ_start_m"], abs=tol)
+    assert c["circ_end_m"] == pytest.approx(truth["circ_end_m"], abs=tol)
+    assert c["s_start_m"] == pytest.approx(truth["s_start_m"], abs=max(15.0, 0.15 * spiral))
+    # within two standard errors, with a positive standard error
+    assert 0 < c["radius_se_m"] and abs(c["radius_m"] - radius) <= 2 * c["radius_se_m"] + 1e-6
+
+
+def test_right_curve_direction():
+    al = simple_curve(200.0, 50.0, left=False)
+    c = _curves([_digitise(al)]).curves
+    assert list(c["direction"]) == ["right"]
+
+
+def test_reverse_curve_gives_two_curves():
+    els = [Element("tangent", 200.0, 0, 0)]
+    els += curve_elements(150.0, 120.0, 40.0, 40.0, True, 1)
+    els += curve_elements(250.0, 150.0, 40.0, 40.0, False, 2)
+    els += [Element("tangent", 200.0, 0, 0)]
+    al = build(els)
+    c = _curves([_digitise(al, 5.0)]).curves
+    assert list(c["direction"]) == ["left", "right"]
+    np.testing.assert_allclose(c["radius_m"], [150.0, 250.0], rtol=0.005)
+
+
+def test_compound_curve_gives_two_circular_parts():
+    els = [Element("tangent", 200.0, 0, 0), Element("arc", 150.0, 1 / 120.0, 1 / 120.0, 1),
+           Element("arc", 200.0, 1 / 300.0, 1 / 300.0, 2), Element("tangent", 200.0, 0, 0)]
+    c = _curves([_digitise(build(els), 5.0)]).curves
+    assert len(c) == 2
+    assert set(c["direction"]) == {"left"}
+    np.testing.assert_allclose(sorted(c["radius_m"]), [120.0, 300.0], rtol=0.01)
+    seg = _curves([_digitise(build(els), 5.0)]).segments
+    assert (seg["kind"] == "curve").sum() == 2
+
+
+def test_broken_back_curves_keep_their_tangent():
+    els = [Element("tangent", 200.0, 0, 0), Element("arc", 100.0, 1 / 200.0, 1 / 200.0, 1),
+           Element("tangent", 120.0, 0, 0), Element("arc", 100.0, 1 / 200.0, 1 / 200.0, 2),
+           Element("tangent", 200.0, 0, 0)]
+    geo = _curves([_digitise(build(els), 5.0)])
+    assert len(geo.curves) == 2
+    kinds = list(geo.segments["kind"])
+    i = kinds.index("curve")
+    assert "tangent" in kinds[i + 1:kinds.index("curve", i + 1)]
+
+
+def test_noisy_irregular_vertices_radius_within_se():
+    """Irregular 5-25 m spacing with 0.5 m noise: the radius lies within about two standard
+    errors and the noise estimate is close to the truth."""
+    al = simple_curve(300.0, 70.0, spiral_m=50.0, tangent_m=400.0)
+    rng = np.random.default_rng(5)
+    hits = 0
+    for k in range(20):
+        xy, _ = vertices(al, np.random.default_rng(k), jitter=(5.0, 25.0), noise_m=0.5)
+        c = _curves([xy]).curves
+        assert len(c) == 1
+        r, se = c["radius_m"].iloc[0], c["radius_se_m"].iloc[0]
+        hits += abs(r - 300.0) <= 2 * se
+        assert c["noise_m"].iloc[0] == pytest.approx(0.5, rel=0.35)
+    assert hits >= 16
+    del rng
+
+
+def test_split_and_reversed_features_find_the_same_curves():
+    al = simple_curve(250.0, 80.0, spiral_m=40.0)
+    xy = _digitise(al, 7.0)
+    whole = _curves([xy]).curves
+    parts = [xy[:25], xy[24:41][::-1], xy[40:]]
+    split = _curves(parts).curves
+    assert len(split) == len(whole) == 1
+    assert split["radius_m"].iloc[0] == pytest.approx(whole["radius_m"].iloc[0], rel=1e-9)
+
+
+# --- bad input ---------------------------------------------------------------------------
+
+
+def test_long_straight_lines_give_no_curve():
+    rng = np.random.default_rng(2)
+    x = np.linspace(0, 5000, 400)
+    noisy = np.c_[x, rng.normal(0, 0.5, 400)]
+    assert len(_curves([np.c_[x, np.zeros(400)], noisy + [0, 200]]).curves) == 0
+
+
+def test_two_vertex_and_repeated_vertex_lines():
+    lines = [np.array([[0.0, 0.0], [100.0, 0.0]]),
+             np.array([[0.0, 50.0], [0.0, 50.0], [50.0, 50.0], [50.0, 50.0], [100.0, 50.0]])]
+    geo = _curves(lines)
+    assert len(geo.curves) == 0
+    assert set(geo.segments["kind"]) == {"tangent"}
+
+
+def test_spike_makes_no_false_curve():
+    x = np.linspace(0, 1000, 101)
+    line = np.c_[x, np.zeros(101)]
+    spiky = np.insert(line, 51, [[480.0, 0.3]], axis=0)  # doubles back 20 m
+    assert len(_curves([spiky]).curves) == 0
+
+
+def test_closed_ring_roundabout_does_not_crash():
+    t = np.linspace(0, 2 * np.pi, 73)
+    ring = np.c_[20 * np.cos(t), 20 * np.sin(t)]
+    geo = _curves([ring])
+    assert len(geo.curves) >= 1
+    assert geo.curves["radius_m"].iloc[0] == pytest.approx(20.0, rel=0.01)
+
+
+def test_zero_length_line_is_skipped_and_recorded():
+    frame = gpd.GeoDataFrame(geometry=[shapely.LineString([(1, 1), (1, 1)]),
+                                       shapely.LineString([(0, 0), (100, 0)])], crs=CRS)
+    cfg = make_config(crs=CRS)
+    with pytest.warns(DataQualityWarning):
+        chains = prepare(load(frame, cfg), cfg)
+    assert chains.skipped[0]["src_fid"] == 0
+    assert len(find_curves(chains, cfg).curves) == 0
+
+
+# --- noise estimate ------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("sigma", [0.1, 0.5, 1.0])
+def test_vertex_noise_estimate(sigma):
+    rng = np.random.default_rng(1)
+    x = np.arange(0, 3000, 10.0)
+    xy = np.c_[x, np.zeros_like(x)] + rng.normal(0, sigma, (len(x), 2))
+    est = vertex_noise(xy, np.array([0, len(x)]), x)[0]
+    assert est == pytest.approx(sigma, rel=0.15)
+
+
+# --- invariance (hypothesis) ------------------------------------------------------------------
+
+
+@settings(max_examples=15, deadline=None)
+@given(angle=st.floats(0, 2 * np.pi), dx=st.floats(-2e4, 2e4), dy=st.floats(-2e4, 2e4),
+       reverse=st.booleans())
+def test_radius_invariant_under_rotation_translation_reversal(angle, dx, dy, reverse):
+    al = simple_curve(180.0, 65.0, spiral_m=30.0)
+    xy = _digitise(al, 8.0)
+    base = _curves([xy]).curves["radius_m"].to_numpy()
+    c, s = np.cos(angle), np.sin(angle)
+    moved = xy @ np.array([[c, s], [-s, c]]) + [dx, dy]
+    if reverse:
+        moved = moved[::-1]
+    got = _curves([moved]).curves
+    np.testing.assert_allclose(got["radius_m"].to_numpy(), base, rtol=1e-6)
+    assert got["direction"].iloc[0] == ("right" if reverse else "left")
+
+
+@settings(max_examples=10, deadline=None)
+@given(scale=st.floats(0.5, 4.0))
+def test_scaling_the_line_scales_the_radius(scale):
+    al = simple_curve(150.0, 60.0)
+    xy = _digitise(al, 5.0)
+    base = _curves([xy]).curves["radius_m"].iloc[0]
+    got = _curves([xy * scale]).curves["radius_m"].iloc[0]
+    assert got == pytest.approx(base * scale, rel=1e-3)
