@@ -67,7 +67,10 @@ def main(target: str) -> None:
     Path(target).parent.mkdir(parents=True, exist_ok=True)
     if not dialog.grab().save(target):
         raise SystemExit(f"could not write {target}")
-    print(target)
+    print(target, flush=True)
+    # Leave without Python's teardown: tearing QGIS down with a dialog and layers still
+    # alive can crash at exit, which would turn a good run into a failed one.
+    os._exit(0)
 
 
 if __name__ == "__main__":

@@ -8,6 +8,7 @@ never as a check value.
 
 from __future__ import annotations
 
+import os
 import sqlite3
 import subprocess
 import sys
@@ -455,3 +456,19 @@ os._exit(0)
     assert "PROVIDER None" in res.stdout
     assert "curvescan is not installed in the Python QGIS uses" in res.stdout
     assert "pip install curvescan" in res.stdout
+
+
+def test_dialog_builds_and_renders(qgis_app, demo_data, tmp_path):
+    """The scan dialog (a widget for every generated parameter) opens and renders, as in the
+    documentation screenshot."""
+    target = tmp_path / "dialog.png"
+    env = {**os.environ, "QT_QPA_PLATFORM": "offscreen", "QGIS_CUSTOM_CONFIG_PATH": str(tmp_path),
+           "XDG_CONFIG_HOME": str(tmp_path)}
+    res = subprocess.run([sys.executable, str(ROOT / "qgis_plugin" / "screenshot.py"),
+                          str(target)], capture_output=True, text=True, timeout=180, env=env)
+    assert res.returncode == 0, res.stderr[-2000:]
+    assert target.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    from qgis.PyQt.QtGui import QImage
+
+    image = QImage(str(target))
+    assert (image.width(), image.height()) == (1100, 1500)
