@@ -27,6 +27,7 @@ from curvescan.errors import CurvescanError, CurvescanWarning
 from .params import (
     SUPPLIED_BY_INPUT,
     check_field_types,
+    from_input,
     help_html,
     parameter_for,
     parameter_for_port,
@@ -186,8 +187,7 @@ class DeclaredAlgorithm(QgsProcessingAlgorithm):
                 check_field_types(values, d.parameters, source.fields())
                 if path.startswith(QgsProcessingUtils.tempFolder()):  # exported copy
                     renames[path] = source.sourceName() or port.name
-                if layer_name and "layer" in {p.name for p in d.parameters}:
-                    values["layer"] = layer_name
+                values.update(from_input(d.parameters, values, layer_name, source.sourceCrs()))
                 positional.append(path)
             elif port.kind == "raster":
                 keywords[port.name] = self._raster_path(port.name, parameters, context)

@@ -35,6 +35,10 @@ from curvescan.declare import Param, Port
 #: ``layer`` names the layer inside a multi-layer file, which the chosen map layer fixes.
 SUPPLIED_BY_INPUT = frozenset({"layer"})
 
+#: Declared parameters the GIS input fills when the form leaves them unset: a file without a
+#: CRS is read in the CRS the layer has in QGIS (a stored CRS always wins, as in curvescan).
+FILLED_FROM_INPUT = frozenset({"assume_crs"})
+
 #: Field types a declared ``field`` parameter can read: numbers or text.
 _READABLE_FIELD_TYPES = frozenset({
     QVariant.Int, QVariant.UInt, QVariant.LongLong, QVariant.ULongLong, QVariant.Double,
@@ -151,6 +155,19 @@ def value_of(algorithm: Any, param: Param, parameters: dict, context: Any) -> An
         return algorithm.parameterAsFile(parameters, name, context) or None
     text = algorithm.parameterAsString(parameters, name, context)
     return text if text != "" else None
+
+
+def from_input(params: tuple[Param, ...], values: dict[str, Any], layer_name: str,
+               crs: Any) -> dict[str, Any]:
+    """Return the values the chosen input layer supplies (layer name; its CRS if unset)."""
+    names = {p.name for p in params}
+    out: dict[str, Any] = {}
+    if layer_name and "layer" in names & SUPPLIED_BY_INPUT:
+        out["layer"] = layer_name
+    if "assume_crs" in names & FILLED_FROM_INPUT and values.get("assume_crs") is None \
+            and crs.isValid():
+        out["assume_crs"] = crs.authid() or crs.toWkt()
+    return out
 
 
 def check_field_types(values: dict[str, Any], params: tuple[Param, ...], fields: Any) -> None:

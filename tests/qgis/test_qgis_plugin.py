@@ -472,3 +472,22 @@ def test_dialog_builds_and_renders(qgis_app, demo_data, tmp_path):
 
     image = QImage(str(target))
     assert (image.width(), image.height()) == (1100, 1500)
+
+
+def test_file_without_crs_is_read_in_the_crs_set_in_qgis(provider, demo_data, tmp_path):
+    """A shapefile without .prj whose CRS the user set in QGIS scans as on the command line
+    with --assume-crs; a CRS stored in the file would win (curvescan never overrides it)."""
+    from qgis.core import QgsCoordinateReferenceSystem, QgsVectorLayer
+
+    frame = pyogrio.read_dataframe(ROADS).set_crs(None, allow_override=True)
+    nocrs = tmp_path / "noprj.shp"
+    with pytest.warns(UserWarning, match="crs"):
+        pyogrio.write_dataframe(frame, nocrs)
+    layer = QgsVectorLayer(str(nocrs), "noprj", "ogr")
+    assert not layer.crs().isValid()
+    layer.setCrs(QgsCoordinateReferenceSystem("EPSG:4326"))
+    out, ref = tmp_path / "qgis.gpkg", tmp_path / "cli.gpkg"
+    _run({"input": layer, "output": str(out), **DEMO_PARAMS})
+    res = _cli("scan", nocrs, "-o", ref, "--assume-crs", "EPSG:4326", *_cli_flags(DEMO_PARAMS))
+    assert res.returncode == 0, res.stderr
+    assert_same_layers(out, ref)
