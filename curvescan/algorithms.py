@@ -23,6 +23,12 @@ def run_scan(source: Any, output: Any = None, *, dem: Any = None, overwrite: boo
         from .io.vector import check_output_path
 
         check_output_path(output, overwrite)  # fail before the work, not after
+        from .config import make_config
+        from .parallel import scan_to_gpkg, wants_partitions
+
+        if wants_partitions(source, make_config(**parameters)):  # streamed, bounded memory
+            return scan_to_gpkg(source, output, dem=dem, overwrite=overwrite,
+                                progress=progress, **parameters)
     result = scan(source, dem=dem, progress=progress, **parameters)
     if output is not None:
         result.to_gpkg(output, overwrite=overwrite)

@@ -11,7 +11,7 @@ from __future__ import annotations
 import dataclasses
 from typing import Any
 
-from . import assess, export, prepare, read, terrain
+from . import assess, export, parallel, prepare, read, terrain
 from .declare import Param, collect
 from .errors import InputError
 from .geometry import PARAMETERS as _GEOMETRY
@@ -28,6 +28,7 @@ SCAN_PARAMETERS: tuple[Param, ...] = collect(
     _PHYSICS,
     assess.PARAMETERS,
     export.PARAMETERS,
+    parallel.PARAMETERS,
 )
 _BY_NAME = {p.name: p for p in SCAN_PARAMETERS}
 

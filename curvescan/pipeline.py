@@ -118,6 +118,10 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
     """
     config = parameters.pop("config", None)
     config = make_config(config, **parameters)
+    from . import parallel
+
+    if parallel.wants_partitions(source, config):
+        return parallel.scan_partitioned(source, dem=dem, progress=progress, config=config)
     report = progress or (lambda stage, frac: None)
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
@@ -128,23 +132,8 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
         _check_fields(frame, config)
         chains = _timed(timings, "prepare", lambda: prepare(frame, config))
         report("prepare", 0.25)
-        geo = _timed(timings, "geometry", lambda: find_curves(chains, config))
-        report("geometry", 0.5)
-        curves = geo.curves
-        curves.attrs["crs"] = chains.crs.to_wkt()
-        speed_report = _attach_attributes(curves, frame, chains, config)
-        ter = _timed(timings, "terrain",
-                     lambda: terrain.evaluate(curves, geo.stations, config,
-                                              None if dem is None else str(dem)))
-        terrain_record = terrain.run_record(ter)
-        curves = curves.join(ter.drop(columns=[c for c in ter.columns if c in curves.columns]))
-        report("terrain", 0.65)
-        phys = _timed(timings, "physics", lambda: physics.evaluate(curves, config))
-        curves = curves.join(phys.drop(columns=[c for c in phys.columns if c in curves.columns]))
-        report("physics", 0.8)
-        layers = _timed(timings, "assess",
-                        lambda: _layers(curves, geo.segments, chains, frame, config))
-        report("assess", 0.95)
+        layers, speed_report, terrain_record = scan_chains(frame, chains, config, dem, report,
+                                                           timings)
     messages = []
     for w in caught:
         messages.append(f"{w.category.__name__}: {w.message}")
@@ -157,6 +146,42 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
     run["assessment"] = assess_summary
     return ScanResult(curves=curves_l, segments=segments_l, hazards=hazards_l, run=run,
                       extra=extra_l, descriptions=dict(assess.DESCRIPTIONS))
+
+
+def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
+                report: Progress, timings: dict[str, float]) -> tuple[tuple, dict, dict]:
+    """Run the stages after prepare (geometry, terrain, physics, assess) on prepared chains.
+
+    Used by :func:`scan` and, once per partition, by :mod:`curvescan.parallel`.
+
+    Returns
+    -------
+    layers : tuple
+        ``(curves, segments, hazards, extra, assessment)``: three GeoDataFrames in the
+        output CRS, a dict of further layers (``winter``) and the assess stage's run-record
+        summary. ``severity_rank`` / ``winter_rank`` are ranks within this call; merged
+        partitions re-rank with :func:`curvescan.assess.rerank`.
+    speed_report, terrain_record : dict
+        The posted-speed parsing report and the terrain stage's run record.
+    """
+    geo = _timed(timings, "geometry", lambda: find_curves(chains, config))
+    report("geometry", 0.5)
+    curves = geo.curves
+    curves.attrs["crs"] = chains.crs.to_wkt()
+    speed_report = _attach_attributes(curves, frame, chains, config)
+    ter = _timed(timings, "terrain",
+                 lambda: terrain.evaluate(curves, geo.stations, config,
+                                          None if dem is None else str(dem)))
+    terrain_record = terrain.run_record(ter)
+    curves = curves.join(ter.drop(columns=[c for c in ter.columns if c in curves.columns]))
+    report("terrain", 0.65)
+    phys = _timed(timings, "physics", lambda: physics.evaluate(curves, config))
+    curves = curves.join(phys.drop(columns=[c for c in phys.columns if c in curves.columns]))
+    report("physics", 0.8)
+    layers = _timed(timings, "assess",
+                    lambda: _layers(curves, geo.segments, chains, frame, config))
+    report("assess", 0.95)
+    return layers, speed_report, terrain_record
 
 
 def _timed(timings: dict, name: str, fn: Callable[[], Any]) -> Any:

@@ -277,16 +277,48 @@ def _remove_spikes(xy: np.ndarray, vidx: np.ndarray, limit_rad: float, passes: i
     return xy, vidx
 
 
-def _join(parts: tuple[np.ndarray, np.ndarray], part_row: np.ndarray,
-          group: np.ndarray | None, tolerance: float) -> Chains:
-    """Join parts that continue each other at degree-2 nodes into chains."""
+def part_ends(parts: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """First and last vertex index of each cleaned part, and the ends as ``(2n, 2)`` xy.
+
+    Row ``2 p`` of the end array is the start of part ``p``, row ``2 p + 1`` its end.
+    """
     xy, pid = parts
-    n = len(part_row)
+    n = int(pid[-1]) + 1 if len(pid) else 0
     starts = np.searchsorted(pid, np.arange(n))
     ends = np.append(starts[1:], len(pid)) - 1
     end_xy = np.empty((2 * n, 2))
     end_xy[0::2] = xy[starts]
     end_xy[1::2] = xy[ends]
+    return starts, ends, end_xy
+
+
+def _join(parts: tuple[np.ndarray, np.ndarray], part_row: np.ndarray,
+          group: np.ndarray | None, tolerance: float) -> Chains:
+    """Join parts that continue each other at degree-2 nodes into chains."""
+    starts, ends, end_xy = part_ends(parts)
+    part, reverse, chain_of = chain_order(end_xy, group, tolerance)
+    return assemble(parts[0], starts, ends, part_row, part, reverse, chain_of, tolerance)
+
+
+def chain_order(end_xy: np.ndarray, group: np.ndarray | None,
+                tolerance: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Which parts form which chain, in which order and direction, from the part ends alone.
+
+    Parameters
+    ----------
+    end_xy : ndarray (2 n, 2)
+        Start and end of every part (see :func:`part_ends`).
+    group : ndarray (n,) or None
+        Parts join only where their group values are equal.
+    tolerance : float
+        Distance within which ends meet (m).
+
+    Returns
+    -------
+    part, reverse, chain_of : ndarray
+        One entry per part in chain order: the part, whether it runs backwards, its chain.
+    """
+    n = len(end_xy) // 2
     node = _cluster(end_xy, tolerance)
     degree = np.bincount(node, minlength=node.max() + 1)
     mate = np.full(2 * n, -1, dtype=np.int64)
@@ -327,8 +359,16 @@ def _join(parts: tuple[np.ndarray, np.ndarray], part_row: np.ndarray,
     chain_of = np.searchsorted(np.flatnonzero(keep_orient), inv[nodes])
     order = np.lexsort((pos[nodes], chain_of))
     nodes, chain_of = nodes[order], chain_of[order]
-    part = nodes >> 1
-    reverse = (nodes & 1) == 1
+    return nodes >> 1, (nodes & 1) == 1, chain_of
+
+
+def assemble(xy: np.ndarray, starts: np.ndarray, ends: np.ndarray, part_row: np.ndarray,
+             part: np.ndarray, reverse: np.ndarray, chain_of: np.ndarray,
+             tolerance: float) -> Chains:
+    """Build :class:`Chains` from cleaned parts and a chain order (see :func:`chain_order`).
+
+    ``chain_of`` must be sorted and number the chains ``0 .. k-1``.
+    """
     # vertex index sequences
     lens = ends[part] - starts[part] + 1
     first_in_chain = np.ones(len(part), dtype=bool)

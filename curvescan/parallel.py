@@ -1,0 +1,580 @@
+"""Partitioned, parallel and distributed scans with dask.
+
+The same core stages run once per partition of the input, on a dask distributed cluster:
+a local one with ``--workers N`` (worker processes on this machine) or an existing one
+with ``--scheduler ADDRESS``. A folder of GeoParquet files is always read partition by
+partition; ``--partition-features`` also splits a single file, to bound the memory of a
+one-worker run.
+
+The result equals a single-process scan (ids aside) because chains are never cut:
+
+1. *survey* (one task per partition): read the partition, project it to the working CRS
+   (chosen once from the total bounds), clean its parts exactly as
+   :func:`curvescan.prepare.prepare` does, and return only the two ends of every part;
+2. *join* (client): :func:`curvescan.prepare.chain_order` over all part ends at once
+   gives every chain, its parts in order and their directions; each chain gets a home
+   partition (the partition of its first part);
+3. *hand-over* (one task per partition with parts of foreign chains): the input rows
+   other partitions need;
+4. *scan* (one task per partition): own rows plus handed-over rows, chains assembled in
+   the global order (:func:`curvescan.prepare.assemble`), then
+   :func:`curvescan.pipeline.scan_chains`.
+
+Only part ends (32 bytes a part) and results travel to the client; every worker reads
+its own partition. Memory on a worker is bounded by the partition size; on the client by
+the part-end arrays, plus the output when an in-memory result is asked for (the command
+line streams the layers into the GeoPackage instead, see :func:`scan_to_gpkg`).
+"""
+
+from __future__ import annotations
+
+import os
+import time
+import warnings
+from dataclasses import dataclass
+from typing import Any, Callable
+
+import numpy as np
+
+from .declare import Param
+
+__all__ = ["PARAMETERS", "wants_partitions", "scan_partitioned", "scan_to_gpkg"]
+
+PARAMETERS: tuple[Param, ...] = (
+    Param("workers", "int", 1,
+          "Partitions scanned in parallel on this machine (a local dask cluster of this many "
+          "worker processes).", stage="parallel", minimum=1, maximum=1024),
+    Param("scheduler", "str", None,
+          "Address of a running dask distributed scheduler (e.g. tcp://10.0.0.5:8786); "
+          "partitions are scanned on its workers, which must reach the input path.",
+          stage="parallel"),
+    Param("partition_features", "int", None,
+          "Features per partition when splitting one file (default 50000); giving it "
+          "partitions even a one-worker run, to bound memory.", stage="parallel",
+          minimum=10, advanced=True),
+)
+
+#: Partition size used when ``partition_features`` is not given.
+DEFAULT_PARTITION_FEATURES = 50_000
+
+Progress = Callable[[str, float], None]
+
+
+def wants_partitions(source: Any, config: Any) -> bool:
+    """Whether a scan of ``source`` goes through the partitioned path."""
+    if config.workers > 1 or config.scheduler or config.partition_features:
+        return True
+    return isinstance(source, (str, os.PathLike)) and os.path.isdir(source) and any(
+        str(p).endswith(".parquet") for p in os.listdir(source))
+
+
+# ----------------------------------------------------------------------------- tasks
+
+@dataclass
+class _Survey:
+    n_rows: int
+    local_fid: bool             # src_fid counted from 0 in this partition (no stored ids)
+    end_xy: np.ndarray          # (2 k, 2) part ends
+    part_row: np.ndarray        # (k,) local row of each part
+    ordinal: np.ndarray         # (k,) index of the part among its row's kept parts
+    group: np.ndarray | None    # (k,) join-field value of each part
+    skipped: list
+    messages: list
+
+
+def _load_partition(src: Any, i: int, payload: Any, config: Any,
+                    offset: int | None = None):
+    """Partition ``i`` as :func:`curvescan.read.load` would give it (``src_fid`` set)."""
+    import pandas as pd
+
+    from .read import load
+
+    frame = src.read(i, payload)
+    if "src_fid" not in frame.columns:
+        if offset is None:
+            raise RuntimeError("row offset needed for a source without src_fid")
+        frame.insert(0, "src_fid", pd.array(np.arange(len(frame)) + offset, dtype="int64"))
+    if len(frame) == 0:
+        return frame
+    return load(frame, config)
+
+
+def _cleaned(frame: Any, config: Any, crs: Any):
+    from .prepare import _clean_parts
+
+    geoms = frame.geometry.values
+    if frame.crs != crs:
+        geoms = frame.geometry.to_crs(crs).values
+    (xy, pid), part_row, skipped = _clean_parts(np.asarray(geoms, dtype=object), frame, config)
+    first = np.r_[True, part_row[1:] != part_row[:-1]] if len(part_row) else np.zeros(0, bool)
+    start = np.maximum.accumulate(np.where(first, np.arange(len(part_row)), 0))
+    ordinal = np.arange(len(part_row)) - start
+    return (xy, pid), part_row, ordinal, skipped
+
+
+@dataclass
+class _Given:
+    """A partition already read, in the shape of a partition source."""
+
+    frame: Any
+
+    def read(self, i: int, payload: Any = None) -> Any:
+        return self.frame
+
+
+def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Survey:
+    """Read partition ``i``, clean its parts, return their ends (first pass)."""
+    from .pipeline import _check_fields
+    from .prepare import part_ends
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        raw = src.read(i, payload)
+        local_fid = "src_fid" not in raw.columns
+        frame = _load_partition(_Given(raw), 0, None, config, offset=0)
+        if len(frame) == 0:
+            empty = np.zeros((0, 2))
+            return _Survey(0, local_fid, empty, np.zeros(0, np.int64), np.zeros(0, np.int64),
+                           None, [], [])
+        _check_fields(frame, config)
+        parts, part_row, ordinal, skipped = _cleaned(frame, config, crs)
+        _, _, end_xy = part_ends(parts) if len(part_row) else (None, None, np.zeros((0, 2)))
+        group = None
+        if config.join_field is not None:
+            group = frame[config.join_field].to_numpy(dtype=object)[part_row]
+    return _Survey(len(frame), local_fid, end_xy, part_row, ordinal, group, skipped,
+                   [(w.category, str(w.message)) for w in caught])
+
+
+def handover_task(src: Any, i: int, payload: Any, config: Any, offset: int,
+                  rows: np.ndarray):
+    """The rows (local indices) of partition ``i`` that other partitions need."""
+    frame = _load_partition(src, i, payload, config, offset)
+    out = frame.iloc[rows].copy()
+    out["_global_row"] = rows + offset
+    return out
+
+
+@dataclass
+class _Plan:
+    """What one partition scans: its chains as global part keys in chain order."""
+
+    own_rows: np.ndarray        # local rows of this partition to keep
+    offset: int                 # global row of its first row
+    keys: np.ndarray            # (m,) global part keys (row * width + ordinal), chain order
+    reverse: np.ndarray         # (m,) bool
+    chain: np.ndarray           # (m,) local chain number, sorted, 0..c-1
+    width: int                  # key multiplier
+    rows_needed: np.ndarray     # global rows to take from handed-over frames
+    sources: list               # partitions handing rows over to this one
+
+
+def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, dem: Any,
+              plan: _Plan, handed: list) -> dict:
+    """Scan the chains homed in partition ``i`` (second pass)."""
+    import pandas as pd
+
+    from .pipeline import scan_chains
+    from .prepare import assemble, part_ends
+
+    timings: dict[str, float] = {}
+    if len(plan.keys) == 0:  # every chain of this partition is homed elsewhere
+        return {"layers": None, "speed": {}, "terrain": {}, "chains": 0, "timings": timings,
+                "messages": []}
+    t0 = time.perf_counter()
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        frame = _load_partition(src, i, payload, config, plan.offset)
+        frame = frame.iloc[plan.own_rows].copy()
+        frame["_global_row"] = plan.own_rows + plan.offset
+        pieces = [frame]
+        for h in handed:
+            pieces.append(h.loc[np.isin(h["_global_row"].to_numpy(), plan.rows_needed)])
+        if len(pieces) > 1:
+            frame = pd.concat(pieces, ignore_index=True)
+        timings["read"] = round(time.perf_counter() - t0, 4)
+        t = time.perf_counter()
+        parts, part_row, ordinal, _ = _cleaned(frame, config, crs)
+        keys = frame["_global_row"].to_numpy(np.int64)[part_row] * plan.width + ordinal
+        order = np.argsort(keys, kind="stable")
+        at = np.searchsorted(keys[order], plan.keys)
+        local = order[np.minimum(at, len(order) - 1)]
+        if len(plan.keys) and not np.array_equal(keys[local], plan.keys):
+            raise RuntimeError(f"partition {i}: parts of its chains are missing")
+        starts, ends, _ = part_ends(parts)
+        chains = assemble(parts[0], starts, ends, part_row, local, plan.reverse, plan.chain,
+                          config.join_tolerance_m)
+        chains.crs, chains.notes = crs, [note]
+        frame = frame.drop(columns="_global_row")
+        timings["prepare"] = round(time.perf_counter() - t, 4)
+        layers, speed, terrain_record = scan_chains(frame, chains, config, dem,
+                                                    lambda *_: None, timings)
+    return {"layers": layers, "speed": speed, "terrain": terrain_record,
+            "chains": chains.n_chains, "timings": timings,
+            "messages": [(w.category, str(w.message)) for w in caught]}
+
+
+# ----------------------------------------------------------------------------- client side
+
+def _client(config: Any):
+    """A distributed client: the given scheduler's, or a local cluster's (closed by caller)."""
+    try:
+        from distributed import Client, LocalCluster
+    except ImportError:  # pragma: no cover - depends on the environment
+        from .errors import InputError
+
+        raise InputError("partitioned scans need dask: pip install 'curvescan[dask]'") from None
+    if config.scheduler:
+        return Client(config.scheduler, timeout="30s"), None
+    processes = config.workers > 1
+    cluster = LocalCluster(n_workers=config.workers, threads_per_worker=1,
+                           processes=processes, dashboard_address=None,
+                           silence_logs=40)
+    return Client(cluster), cluster
+
+
+def _working_crs(src: Any, config: Any, client: Any):
+    import geopandas as gpd
+    import shapely
+
+    from .prepare import working_crs
+    from .read import parse_crs
+
+    crs = src.crs
+    if crs is None:
+        if config.assume_crs is None:
+            from .errors import CRSError
+
+            raise CRSError(f"{src.path or 'input frame'} has no CRS; give one with "
+                           "--assume-crs (e.g. EPSG:4326 for GPS data)")
+        crs = parse_crs(config.assume_crs, what="--assume-crs")
+    bounds = src.bounds
+    if bounds is None or not np.all(np.isfinite(bounds)):
+        futures = [client.submit(_bounds_task, src.light(), i, src.payload(i), pure=False)
+                   for i in range(src.n)]
+        b = np.array([f.result() for f in futures])
+        bounds = np.array([np.nanmin(b[:, 0]), np.nanmin(b[:, 1]),
+                           np.nanmax(b[:, 2]), np.nanmax(b[:, 3])])
+    corners = gpd.GeoDataFrame(geometry=shapely.points([bounds[:2], bounds[2:]]), crs=crs)
+    return working_crs(corners, config.crs)
+
+
+def _bounds_task(src: Any, i: int, payload: Any) -> np.ndarray:
+    frame = src.read(i, payload)
+    return frame.total_bounds if len(frame) else np.full(4, np.nan)
+
+
+def _plans(surveys: list[_Survey], config: Any):
+    """Join all part ends; return per-partition plans, hand-over rows and totals."""
+    from .prepare import chain_order
+
+    n_rows = np.array([s.n_rows for s in surveys], dtype=np.int64)
+    offsets = np.concatenate([[0], np.cumsum(n_rows)])
+    counts = np.array([len(s.part_row) for s in surveys])
+    if counts.sum() == 0:
+        return None
+    part_of = np.repeat(np.arange(len(surveys)), counts)
+    grow = np.concatenate([s.part_row + offsets[k] for k, s in enumerate(surveys)])
+    ordinal = np.concatenate([s.ordinal for s in surveys])
+    width = int(ordinal.max()) + 1
+    keys = grow * width + ordinal
+    end_xy = np.concatenate([s.end_xy for s in surveys])
+    group = None
+    if config.join_field is not None:
+        group = np.concatenate([s.group for s in surveys])
+    part, reverse, chain_of = chain_order(end_xy, group, config.join_tolerance_m)
+    first = np.r_[True, chain_of[1:] != chain_of[:-1]]
+    home_of_chain = part_of[part[first]]
+    home = home_of_chain[chain_of]          # per entry of the chain order
+    plans, wanted = [], [[] for _ in surveys]
+    for p in range(len(surveys)):
+        sel = np.flatnonzero(home == p)
+        rows = np.unique(grow[part[sel]])
+        local = (rows >= offsets[p]) & (rows < offsets[p + 1])
+        foreign = rows[~local]
+        src_part = np.searchsorted(offsets, foreign, side="right") - 1
+        for q in np.unique(src_part):
+            wanted[q].append(foreign[src_part == q] - offsets[q])
+        c = chain_of[sel]
+        _, chain_local = np.unique(c, return_inverse=True)
+        plans.append(_Plan(own_rows=rows[local] - offsets[p], offset=int(offsets[p]),
+                           keys=keys[part[sel]], reverse=reverse[sel],
+                           chain=chain_local.ravel(), width=width, rows_needed=foreign,
+                           sources=np.unique(src_part).tolist()))
+    handover = [np.unique(np.concatenate(w)) if w else None for w in wanted]
+    return plans, handover, offsets, int(chain_of.max()) + 1
+
+
+def _emit(messages: list, seen: set) -> None:
+    for category, text in messages:
+        if text not in seen:
+            seen.add(text)
+            warnings.warn(text, category, stacklevel=4)
+
+
+def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None,
+                   sink: Callable[[int, dict], None]) -> dict:
+    """Run the four passes; hand each partition's result to ``sink`` as it completes.
+
+    Returns the parts of the run record that are known once all partitions are done.
+    """
+    from distributed import as_completed
+
+    from .errors import DataQualityWarning, InputError
+    from .io.partitions import open_partitions
+    from .prepare import _reason_summary
+
+    report = progress or (lambda stage, frac: None)
+    size = config.partition_features or DEFAULT_PARTITION_FEATURES
+    timings: dict[str, float] = {}
+    seen: set[str] = set()
+    t0 = time.perf_counter()
+    client, cluster = _client(config)
+    try:
+        src = open_partitions(source, layer=config.layer, partition_features=size,
+                              client=client)
+        crs, note = _working_crs(src, config, client)
+        light = src.light()
+        futures = [client.submit(survey_task, light, i, src.payload(i), config, crs, pure=False)
+                   for i in range(src.n)]
+        surveys: list[Any] = [None] * src.n
+        index = {f.key: i for i, f in enumerate(futures)}
+        for k, fut in enumerate(as_completed(futures), 1):
+            surveys[index[fut.key]] = fut.result()
+            report(f"survey {k}/{src.n}", 0.2 * k / src.n)
+        del futures
+        timings["survey"] = round(time.perf_counter() - t0, 4)
+        n_rows = np.array([sv.n_rows for sv in surveys], dtype=np.int64)
+        starts = np.concatenate([[0], np.cumsum(n_rows)])
+        skipped = [dict(s, src_fid=s["src_fid"] + int(starts[k])) if sv.local_fid else s
+                   for k, sv in enumerate(surveys) for s in sv.skipped]
+        for sv in surveys:
+            _emit(sv.messages, seen)
+        t = time.perf_counter()
+        planned = _plans(surveys, config)
+        if planned is None:
+            raise InputError("the input has no usable line geometries "
+                             f"({len(skipped)} features skipped: {_reason_summary(skipped)})")
+        if skipped:
+            warnings.warn(f"{len(skipped)} input features or parts skipped: "
+                          f"{_reason_summary(skipped)}", DataQualityWarning, stacklevel=3)
+        plans, handover, offsets, n_chains = planned
+        n_rows = int(offsets[-1])
+        del surveys
+        timings["join"] = round(time.perf_counter() - t, 4)
+        t = time.perf_counter()
+        hand = {q: client.submit(handover_task, light, q, src.payload(q), config,
+                                 int(offsets[q]), rows, pure=False)
+                for q, rows in enumerate(handover) if rows is not None}
+        dem_path = None if dem is None else str(dem)
+        futures = [client.submit(scan_task, light, p, src.payload(p), config, crs, note,
+                                 dem_path, plans[p], [hand[q] for q in plans[p].sources],
+                                 pure=False)
+                   for p in range(src.n)]
+        index = {f.key: i for i, f in enumerate(futures)}
+        part_timings: dict[str, float] = {}
+        for k, fut in enumerate(as_completed(futures), 1):
+            out = fut.result()
+            fut.release()
+            _emit(out["messages"], seen)
+            for name, v in out["timings"].items():
+                part_timings[name] = round(part_timings.get(name, 0.0) + v, 4)
+            sink(index[fut.key], out)
+            report(f"partition {k}/{src.n}", 0.2 + 0.8 * k / src.n)
+        timings["scan"] = round(time.perf_counter() - t, 4)
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+    timings["total"] = round(time.perf_counter() - t0, 4)
+    return {"crs": crs, "note": note, "input_crs": src.crs, "n_rows": n_rows,
+            "chains": n_chains, "skipped": skipped, "partitions": src.n,
+            "timings": timings, "task_timings": part_timings, "messages": sorted(seen)}
+
+
+class _Merger:
+    """Renumber ids across partitions; stream or keep curves and segments, keep the rest.
+
+    Hazards and further layers (``winter``) are always kept, so that their ranks can be
+    made global (:func:`curvescan.assess.rerank`) once all partitions are in.
+    """
+
+    def __init__(self, keep: bool, write: Callable[[str, Any], None] | None = None) -> None:
+        self.keep, self.write = keep, write
+        self.next = {"curve_id": 0, "segment_id": 0, "chain_id": 0}
+        self.kept: dict[str, list] = {}
+        self.counts: dict[str, int] = {}
+        self.speed: dict[str, Any] = {}
+        self.terrain: dict[str, Any] = {}
+        self.assessment: dict[str, Any] = {}
+        self.summary: list = []
+        self.pending: dict[int, dict] = {}
+        self.done = 0
+
+    def __call__(self, index: int, out: dict) -> None:
+        # renumber in partition order so that ids do not depend on completion order
+        self.pending[index] = out
+        while self.done in self.pending:
+            self._take(self.pending.pop(self.done))
+            self.done += 1
+
+    def _take(self, out: dict) -> None:
+        if out["layers"] is None:
+            return
+        curves, segments, hazards, extra, summary = out["layers"]
+        named = {"curves": curves, "segments": segments, "hazards": hazards, **extra}
+        shift = dict(self.next)
+        for name, layer in named.items():
+            cols = {c: layer[c] + shift[c] for c in shift if c in layer.columns}
+            layer = layer.assign(**cols) if cols else layer
+            self.counts[name] = self.counts.get(name, 0) + len(layer)
+            if name in ("curves", "segments") and not self.keep:
+                self.write(name, layer)
+                if name == "curves":
+                    keep = [c for c in layer.columns if c in ("curve_id", "posted_kmh")
+                            or (c.startswith("v_") and c.endswith("_kmh"))]
+                    self.summary.append(pd_frame(layer[keep]))
+            else:
+                self.kept.setdefault(name, []).append(layer)
+        self.next["curve_id"] += len(curves)
+        self.next["segment_id"] += len(segments)
+        self.next["chain_id"] += out["chains"]
+        _merge_report(self.speed, out["speed"])
+        _merge_report(self.assessment, summary)
+        self.terrain = out["terrain"] or self.terrain
+
+    def layers(self, crs: Any, config: Any) -> dict[str, Any]:
+        """The kept layers, concatenated; hazards and winter re-ranked over all parts."""
+        from . import assess
+
+        out = {name: _concat(frames, crs) for name, frames in self.kept.items()}
+        hz, winter = out.get("hazards"), out.get("winter")
+        if hz is not None and winter is not None and "mildest_condition" in hz.columns:
+            names = assess.condition_order(out.get("curves", hz), config)
+            out["hazards"], out["winter"] = assess.rerank(hz, winter, names)
+        return out
+
+
+def pd_frame(frame: Any) -> Any:
+    """A plain DataFrame copy (no geometry) of ``frame``."""
+    import pandas as pd
+
+    return pd.DataFrame(frame).copy()
+
+
+def _merge_report(total: dict, part: dict) -> None:
+    """Fold one partition's report into ``total``: numbers add up, lists are capped at 10."""
+    for key, value in (part or {}).items():
+        if key not in total:
+            total[key] = value.copy() if isinstance(value, (dict, list)) else value
+        elif isinstance(value, dict) and isinstance(total[key], dict):
+            _merge_report(total[key], value)
+        elif isinstance(value, (int, float)) and not isinstance(value, bool):
+            total[key] = total[key] + value
+        elif isinstance(value, list) and isinstance(total[key], list):
+            total[key] = (total[key] + value)[:10]
+
+
+def _finish(source, dem, config, info: dict, merger: _Merger, layers: dict):
+    import geopandas as gpd
+    import pandas as pd
+
+    from . import assess, physics
+    from ._version import __version__
+    from .cautions import CAUTION
+    from .pipeline import ScanResult
+
+    info["timings"]["partitions"] = info["partitions"]
+    info["timings"]["tasks"] = info["task_timings"]
+    run = {
+        "curvescan_version": __version__,
+        "created_utc": pd.Timestamp.now(tz="UTC").isoformat(timespec="seconds"),
+        "input": str(source) if not isinstance(source, gpd.GeoDataFrame) else "GeoDataFrame",
+        "input_layer": config.layer,
+        "input_crs": info["input_crs"].to_string() if info["input_crs"] is not None else None,
+        "working_crs": info["crs"].to_wkt(),
+        "dem": None if dem is None else str(dem),
+        "parameters": config.as_dict(),
+        "physics": physics.run_record(config),
+        "terrain": merger.terrain,
+        "input_features": info["n_rows"],
+        "chains": info["chains"],
+        "curves": merger.counts.get("curves", 0),
+        "hazards": merger.counts.get("hazards", 0),
+        "segments": merger.counts.get("segments", 0),
+        "skipped_features": len(info["skipped"]),
+        "skipped": info["skipped"],
+        "posted_speed": merger.speed or {"field": config.speed_field},
+        "notes": [info["note"], f"scanned in {info['partitions']} partitions; assessment "
+                  "counts are summed over partitions, its worst lists are per partition"],
+        "warnings": info["messages"],
+        "timings_s": info["timings"],
+        "caution": CAUTION,
+        "assessment": merger.assessment,
+    }
+    main = ("curves", "segments", "hazards")
+    return ScanResult(curves=layers["curves"], segments=layers["segments"],
+                      hazards=layers["hazards"], run=run,
+                      extra={k: v for k, v in layers.items() if k not in main},
+                      descriptions=dict(getattr(assess, "DESCRIPTIONS", {})))
+
+
+def _concat(frames: list, crs: Any):
+    import geopandas as gpd
+    import pandas as pd
+
+    frames = [f for f in frames if len(f)] or frames[:1]
+    if not frames:
+        return gpd.GeoDataFrame({"geometry": []}, geometry="geometry", crs=crs)
+    return pd.concat(frames, ignore_index=True)
+
+
+def scan_partitioned(source: Any, *, dem: Any = None, progress: Progress | None = None,
+                     config: Any) -> Any:
+    """Scan partition by partition on a dask cluster; return the whole result in memory.
+
+    Called by :func:`curvescan.scan` when ``workers > 1``, a ``scheduler`` or a
+    ``partition_features`` is given, or the source is a GeoParquet folder.
+    """
+    merger = _Merger(keep=True)
+    info = run_partitions(source, config, dem, progress, merger)
+    return _finish(source, dem, config, info, merger, merger.layers(info["input_crs"], config))
+
+
+def scan_to_gpkg(source: Any, output: Any, *, dem: Any = None, overwrite: bool = False,
+                 progress: Progress | None = None, **parameters: Any) -> Any:
+    """Scan partition by partition, streaming ``curves`` and ``segments`` into ``output``.
+
+    Curves and segments are appended to the GeoPackage as partitions complete, so memory
+    stays bounded by the partition size; hazards and winter layers (a small share of the
+    curves) are kept, ranked over all partitions, and written at the end. The returned
+    result holds the run record, the hazards and the curves' speed columns (enough for the
+    summary) but no ``segments`` rows.
+    """
+    import pandas as pd
+
+    from .config import make_config
+    from .io.partitions import GpkgAppender
+    from .pipeline import ScanResult
+
+    config = make_config(parameters.pop("config", None), **parameters)
+    from . import assess
+
+    probe = ScanResult(curves=pd.DataFrame(), segments=pd.DataFrame(), hazards=pd.DataFrame(),
+                       run={}, descriptions=dict(getattr(assess, "DESCRIPTIONS", {})))
+    sink = GpkgAppender(output, overwrite=overwrite, descriptions=probe.layer_descriptions())
+    merger = _Merger(keep=False, write=sink.append)
+    try:
+        info = run_partitions(source, config, dem, progress, merger)
+        layers = merger.layers(info["input_crs"], config)
+        layers["curves"] = (pd.concat(merger.summary, ignore_index=True) if merger.summary
+                            else pd.DataFrame())
+        layers["segments"] = pd.DataFrame()
+        result = _finish(source, dem, config, info, merger, layers)
+        last = {name: frame for name, frame in result.layers().items()
+                if name not in ("curves", "segments")}
+        sink.close(last)
+    except BaseException:
+        sink.abort()
+        raise
+    return result
