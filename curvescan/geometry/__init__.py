@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from ..declare import Param
-from ._ragged import expand, group_quantile
+from ._ragged import expand, find, group_quantile
 from .circular import Profile, circular_parts, cumulative_turn
 from .noise import vertex_noise
 from .pieces import piece_table, resolve_overlaps
@@ -243,11 +243,11 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     next_start = np.where(chain_next, np.r_[circ_start[1:], 0.0], lengths)
     look_lo = np.maximum(circ_start - 2.0 * np.maximum(circ_start - run_lo, 0.0), prev_end)
     look_hi = np.minimum(circ_end + 2.0 * np.maximum(run_hi - circ_end, 0.0), next_start)
-    a = np.searchsorted(prof.gs, np.maximum(look_lo, 0.0) + gbase, side="left")
-    b = np.searchsorted(prof.gs, p["lo"], side="right") - 1
+    a = find(prof.gs, np.maximum(look_lo, 0.0) + gbase, side="left")
+    b = find(prof.gs, p["lo"], side="right") - 1
     start = np.minimum(_ramp_end(prof, a, np.maximum(b, a), level, sign, scale, -1), circ_start)
-    a2 = np.searchsorted(prof.gs, p["hi"], side="left")
-    b2 = np.searchsorted(prof.gs, np.minimum(look_hi, lengths) + gbase, side="right") - 1
+    a2 = find(prof.gs, p["hi"], side="left")
+    b2 = find(prof.gs, np.minimum(look_hi, lengths) + gbase, side="right") - 1
     end = np.maximum(_ramp_end(prof, a2, np.maximum(b2, a2), level, sign, scale, +1), circ_end)
     fine = prof.half_m[scale, chain]
     start = np.where(circ_start - start < 0.75 * fine, circ_start, start)
@@ -267,8 +267,8 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     hi_lim = np.where(same_chain_next, np.r_[start[1:], 0.0], lengths)
     ext_lo = np.maximum(start - reach, np.maximum(lo_lim, 0.5 * (lo_lim + start)))
     ext_hi = np.minimum(end + reach, np.minimum(hi_lim, 0.5 * (hi_lim + end)))
-    i_s = np.searchsorted(prof.gs, ext_lo + gbase, side="left")
-    i_e = np.maximum(np.searchsorted(prof.gs, ext_hi + gbase, side="right") - 1, i_s)
+    i_s = find(prof.gs, ext_lo + gbase, side="left")
+    i_e = np.maximum(find(prof.gs, ext_hi + gbase, side="right") - 1, i_s)
     turn = np.zeros(n)
     for j in np.unique(scale):
         m = scale == j
@@ -312,15 +312,15 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
 def _half_level_extent(prof, p, sign, scale, gbase):
     """Stretch around each part's middle where curvature stays above half of 1/R."""
     n = len(sign)
-    a = np.searchsorted(prof.gs, p["lo"] - prof.half_m[scale, p["chain"].astype(np.int64)],
+    a = find(prof.gs, p["lo"] - prof.half_m[scale, p["chain"].astype(np.int64)],
                         side="left")
-    b = np.searchsorted(prof.gs, p["hi"] + prof.half_m[scale, p["chain"].astype(np.int64)],
+    b = find(prof.gs, p["hi"] + prof.half_m[scale, p["chain"].astype(np.int64)],
                         side="right") - 1
     chain = p["chain"].astype(np.int64)
-    a = np.maximum(a, prof.v_off.size and np.searchsorted(prof.chain, chain, side="left"))
+    a = np.maximum(a, np.searchsorted(prof.chain, chain, side="left"))
     b = np.minimum(b, np.searchsorted(prof.chain, chain, side="right") - 1)
     b = np.maximum(a, b)
-    centre = np.clip(np.searchsorted(prof.gs, 0.5 * (p["lo"] + p["hi"])), a, b)
+    centre = np.clip(find(prof.gs, 0.5 * (p["lo"] + p["hi"]), side="left"), a, b)
     idx, grp = expand(a, b - a + 1)
     low = prof.k(scale[grp], idx) * sign[grp] < 0.5 / p["radius"][grp]
     big = np.iinfo(np.int64).max

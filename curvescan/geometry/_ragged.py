@@ -4,7 +4,11 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["expand", "group_quantile", "group_argmax"]
+__all__ = ["expand", "group_quantile", "group_argmax", "find", "TIE_M"]
+
+#: Measures closer than this (m) count as equal: positions recomputed from different
+#: global offsets (another chain order, another partition) differ in the last bits.
+TIE_M = 1e-6
 
 
 def expand(starts: np.ndarray, counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -37,3 +41,13 @@ def group_argmax(values: np.ndarray, grp: np.ndarray, n: int) -> np.ndarray:
     has = counts > 0
     out[has] = order[last[has]]
     return out
+
+
+def find(sorted_values: np.ndarray, value, side: str = "left") -> np.ndarray:
+    """``np.searchsorted`` treating values within :data:`TIE_M` as equal.
+
+    ``side="left"`` counts a near-equal element as at or after ``value`` (inclusive lower
+    bound); ``side="right"`` counts it as at or before (inclusive upper bound).
+    """
+    shift = -TIE_M if side == "left" else TIE_M
+    return np.searchsorted(sorted_values, np.asarray(value) + shift, side=side)

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._ragged import expand, group_argmax, group_quantile
+from ._ragged import expand, find, group_argmax, group_quantile
 from .circlefit import CircleFit, fit_circles
 
 __all__ = ["Profile", "circular_parts"]
@@ -99,8 +99,8 @@ def _vertex_range(prof: Profile, lo: np.ndarray, hi: np.ndarray, vlo: np.ndarray
                   vhi: np.ndarray, minimum: int = 3):
     """Vertex index range [i0, i1) with measures in [lo, hi], widened to ``minimum``
     vertices within [vlo, vhi)."""
-    i0 = np.searchsorted(prof.gm, lo - 1e-9, side="left")
-    i1 = np.searchsorted(prof.gm, hi + 1e-9, side="right")
+    i0 = find(prof.gm, lo, side="left")
+    i1 = find(prof.gm, hi, side="right")
     i0, i1 = np.maximum(i0, vlo), np.minimum(i1, vhi)
     i1 = np.maximum(i1, i0)
     for _ in range(minimum):
@@ -161,7 +161,7 @@ def _consensus(prof: Profile, fit: CircleFit, centre: np.ndarray, vlo, vhi, tol)
 
 
 def _station_at(prof: Profile, g: np.ndarray, side: str) -> np.ndarray:
-    return np.searchsorted(prof.gs, g, side=side)
+    return find(prof.gs, g, side=side)
 
 
 def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndarray, *,
@@ -189,9 +189,9 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         if len(pf) == 0:
             break
         chain = prof.chain[pf]
-        vlo = np.maximum(np.searchsorted(prof.gm, prof.gs[pf] - 1e-9, side="left"),
+        vlo = np.maximum(find(prof.gm, prof.gs[pf], side="left"),
                          prof.v_off[chain])
-        vhi = np.minimum(np.searchsorted(prof.gm, prof.gs[pl] + 1e-9, side="right"),
+        vhi = np.minimum(find(prof.gm, prof.gs[pl], side="right"),
                          prof.v_off[chain + 1])
         # a piece may fall between two vertices: reach out to the chain's vertices
         short = vhi - vlo < 3
@@ -200,7 +200,7 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         cf, cl = _core(prof, pf, pl, scale)
         i0, i1 = _vertex_range(prof, prof.gs[cf], prof.gs[cl], vlo, vhi, minimum=SEED_VERTICES)
         centre_m = 0.5 * (prof.gs[cf] + prof.gs[cl])
-        centre = np.clip(np.searchsorted(prof.gm, centre_m), i0, np.maximum(i1 - 1, i0))
+        centre = np.clip(find(prof.gm, centre_m), i0, np.maximum(i1 - 1, i0))
         fit = _fit(prof, i0, i1)
         for _ in range(4):
             tol = np.maximum(2.5 * prof.sigma[chain], tolerance_floor_m)

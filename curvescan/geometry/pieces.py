@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from ._ragged import find
 from .resample import global_measure, interpolate
 
 __all__ = ["resolve_overlaps", "piece_table", "substrings"]
@@ -109,8 +110,9 @@ def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray) -
     gm, base = global_measure(chains.measure, chains.offsets)
     g0 = s0 + base[chain]
     g1 = np.maximum(s1, s0) + base[chain]
-    i0 = np.searchsorted(gm, g0, side="right")
-    i1 = np.searchsorted(gm, g1, side="left")
+    # interior vertices strictly inside (near-equal ones are the interpolated ends)
+    i0 = find(gm, g0, side="right")
+    i1 = find(gm, g1, side="left")
     inner = np.maximum(i1 - i0, 0)
     count = inner + 2
     grp = np.repeat(np.arange(len(chain)), count)
