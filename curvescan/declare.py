@@ -164,3 +164,25 @@ def collect(*groups: Sequence[Param]) -> tuple[Param, ...]:
                 raise ValueError(f"parameter {p.name!r} is declared twice")
             seen[p.name] = p
     return tuple(seen.values())
+
+
+def parameters_markdown(params: Sequence[Param]) -> str:
+    """A Markdown table per stage of the declared parameters (for docs/parameters.md)."""
+    lines = ["# Parameters", "",
+             "Generated from the declarations (`python -m curvescan.paramdoc`); do not edit by",
+             "hand. Every parameter is a `curvescan scan` option (`--name-with-dashes`) and a",
+             "keyword of `curvescan.scan(...)`.", ""]
+    stages: dict[str, list[Param]] = {}
+    for p in params:
+        stages.setdefault(p.stage, []).append(p)
+    for stage, group in stages.items():
+        lines += [f"## {stage}", "", "| option | kind | default | unit | meaning |",
+                  "|---|---|---|---|---|"]
+        for p in group:
+            kind = p.kind if not p.choices else " / ".join(p.choices)
+            default = "" if p.default is None else f"`{p.default}`"
+            lines.append(f"| `{p.flag}` | {kind} | {default} | {p.unit or ''} | "
+                         f"{p.help.replace('|', '/')} |")
+        lines.append("")
+    return "\n".join(lines)
+

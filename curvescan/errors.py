@@ -13,7 +13,6 @@ __all__ = [
     "CRSError",
     "DataSourceError",
     "OutputExistsError",
-    "FitError",
     "ConfigError",
     "CurvescanWarning",
     "DataQualityWarning",
@@ -39,10 +38,6 @@ class DataSourceError(CurvescanError, OSError):
 
 class OutputExistsError(DataSourceError):
     """The output exists and overwriting was not requested."""
-
-
-class FitError(CurvescanError, ValueError):
-    """A geometric fit cannot be computed from the data given."""
 
 
 class ConfigError(CurvescanError, ValueError):
