@@ -53,6 +53,7 @@ def make_roads(n_roads: int, scenario: str, seed: int = 1):
     split = spec.pop("split", False)
     rng = np.random.default_rng(seed)
     geoms, road_of, truths, refs, noise = [], [], [], [], spec.get("noise_m", 0.0)
+    against = []
     true_vertices = []
     for i in range(n_roads):
         al = random_alignment(rng, n_curves=6)
@@ -72,12 +73,16 @@ def make_roads(n_roads: int, scenario: str, seed: int = 1):
         truths.append(t)
         refs.append(ref)
         true_vertices.append((exact + offset, s))
-        pieces = split_features(xy, rng, int(rng.integers(2, 5))) if split else [xy]
+        srng = np.random.default_rng(seed * 7_919 + i)  # keeps the roads equal to "clean"
+        pieces = split_features(xy, srng, int(srng.integers(2, 5))) if split else [xy]
         for p in pieces:
             geoms.append(shapely.LineString(p))
             road_of.append(i)
+            ends = shapely.line_locate_point(ref, shapely.points(p[[0, -1]]))
+            against.append(bool(ends[0] > ends[1]))
         del centre_s
-    frame = gpd.GeoDataFrame({"road": road_of}, geometry=geoms, crs=CRS)
+    # ``against``: the feature runs against the road's digitised direction (split pieces)
+    frame = gpd.GeoDataFrame({"road": road_of, "against": against}, geometry=geoms, crs=CRS)
     return frame, pd.concat(truths, ignore_index=True), refs
 
 
@@ -102,8 +107,13 @@ def _kcr_sd(exact_xy, s, row, noise):
     return float(np.sqrt(max(cov[2, 2], 0.0)))
 
 
-def score(result, truth: pd.DataFrame, refs: list) -> tuple[dict, pd.DataFrame]:
-    """Match detected circular parts to truth arcs along each road and score them."""
+def score(result, truth: pd.DataFrame, refs: list, frame=None) -> tuple[dict, pd.DataFrame]:
+    """Match detected circular parts to truth arcs along each road and score them.
+
+    Directions are reported in the digitised direction of the feature a curve lies on;
+    where that feature runs against the road (``frame["against"]``), the truth's direction
+    is compared swapped.
+    """
     seg = result.segments
     seg = seg[seg["kind"] == "curve"].merge(
         result.curves[["curve_id", "radius_m", "radius_se_m", "direction"]].rename(
@@ -114,6 +124,10 @@ def score(result, truth: pd.DataFrame, refs: list) -> tuple[dict, pd.DataFrame]:
     mid = seg.geometry.interpolate(0.5, normalized=True)
     road = ref_lines.sindex.nearest(mid, return_all=False)[1]
     seg = seg.assign(road=road)
+    seg["against"] = False
+    if frame is not None:
+        feature = frame.sindex.nearest(mid, return_all=False)[1]
+        seg["against"] = frame["against"].to_numpy()[feature]
     a = shapely.line_locate_point(np.asarray(refs, dtype=object)[road],
                                   shapely.get_point(seg.geometry.values, 0))
     b = shapely.line_locate_point(np.asarray(refs, dtype=object)[road],
@@ -146,7 +160,9 @@ def score(result, truth: pd.DataFrame, refs: list) -> tuple[dict, pd.DataFrame]:
                 rec.update(found=True, r_fit=d["r_fit"], r_se=d["radius_se_m"],
                            circ_err_m=max(abs(d["lo"] - lo), abs(d["hi"] - hi)),
                            ends_err_m=max(abs(d["c_lo"] - ts), abs(d["c_hi"] - te)),
-                           dir_ok=d["direction"] == t["direction"])
+                           dir_ok=d["direction"] == (
+                               {"left": "right", "right": "left"}[t["direction"]]
+                               if d["against"] else t["direction"]))
             else:
                 rec.update(found=False)
             rows.append(rec)
@@ -182,7 +198,7 @@ def score(result, truth: pd.DataFrame, refs: list) -> tuple[dict, pd.DataFrame]:
 
 
 def run(scenarios, n_roads, seed=1, **params):
-    report = {}
+    report, results = {}, {}
     for name in scenarios:
         frame, truth, refs = make_roads(n_roads, name, seed)
         t0 = time.perf_counter()
@@ -190,10 +206,23 @@ def run(scenarios, n_roads, seed=1, **params):
             warnings.simplefilter("ignore")
             result = curvescan.scan(frame, crs=CRS, **params)
         elapsed = time.perf_counter() - t0
-        stats, _ = score(result, truth, refs)
+        stats, _ = score(result, truth, refs, frame)
         stats["scan_s"] = round(elapsed, 2)
         stats["features"] = len(frame)
         report[name] = stats
+        results[name] = result
+    if "split" in results:
+        # split and reversed features must find the same curves as the unsplit roads
+        if "clean" not in results:
+            frame, _, _ = make_roads(n_roads, "clean", seed)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                results["clean"] = curvescan.scan(frame, crs=CRS, **params)
+        a = np.sort(results["clean"].curves["radius_m"].to_numpy())
+        b = np.sort(results["split"].curves["radius_m"].to_numpy())
+        same = len(a) == len(b) and np.allclose(a, b, rtol=1e-6)
+        report["split"]["same_curves_as_unsplit"] = float(same) if same else float(
+            np.isin(np.round(b, 3), np.round(a, 3)).mean())
     return report
 
 

@@ -15,7 +15,7 @@ import pyarrow.compute as pc
 
 from .geometry.resample import global_measure
 
-__all__ = ["rows_on", "src_fid_text", "reduce_rows"]
+__all__ = ["rows_on", "src_fid_text", "reduce_rows", "reversed_at", "orient_to_features"]
 
 
 def rows_on(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray):
@@ -77,3 +77,43 @@ def first_value(groups: np.ndarray, rows: np.ndarray, values: np.ndarray, n: int
     first = np.r_[True, g[1:] != g[:-1]]
     out[g[first]] = values[rows[order][first]]
     return out
+
+
+def reversed_at(chains: Any, chain: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """Whether the input feature under measure ``s`` of ``chain`` runs against the chain.
+
+    A segment belongs to the part of its second vertex (its first may be a joint).
+    """
+    if chains.vertex_reversed is None or len(chain) == 0:
+        return np.zeros(len(chain), dtype=bool)
+    gm, base = global_measure(chains.measure, chains.offsets)
+    j = np.searchsorted(gm, s + base[chain], side="right") - 1
+    j = np.clip(j, chains.offsets[chain], chains.offsets[chain + 1] - 2)
+    return chains.vertex_reversed[j + 1].astype(bool)
+
+
+#: Text columns naming a direction of travel relative to the digitised direction.
+_DIRECTION_WORDS = {"left": "right", "right": "left", "digitised": "reverse",
+                    "reverse": "digitised"}
+
+
+def orient_to_features(layer: Any, against: np.ndarray) -> Any:
+    """Express directions in each curve's own feature's digitised direction.
+
+    The stages work in the chain's direction; where the feature a curve lies on was
+    digitised the other way (``against``), ``direction`` swaps left and right, ``grade``
+    changes sign and fields naming a travel direction swap ``digitised`` and ``reverse``.
+    """
+    if not len(layer) or not np.any(against):
+        return layer
+    layer = layer.copy()
+    flip = np.asarray(against, dtype=bool)
+    for col in ("direction", "grade_max_down_direction", "approach_direction"):
+        if col in layer.columns:
+            values = layer[col].to_numpy(dtype=object).copy()
+            values[flip] = [_DIRECTION_WORDS.get(v, v) for v in values[flip]]
+            layer[col] = values
+    if "grade" in layer.columns:
+        layer["grade"] = np.where(flip, -layer["grade"].to_numpy(dtype=float),
+                                  layer["grade"].to_numpy(dtype=float))
+    return layer

@@ -76,6 +76,8 @@ class Chains:
         For each chain, the input rows it is made of, in chain order.
     closed : ndarray (n_chains,) of bool
         Whether the chain closes on itself (a ring).
+    vertex_reversed : ndarray (n_vertices,) of bool, optional
+        Whether the part a vertex comes from runs against the chain's direction.
     skipped : list of dict
         Input features (or parts) left out, each with ``src_fid`` and ``reason``.
     notes : list of str
@@ -89,6 +91,7 @@ class Chains:
     crs: pyproj.CRS
     rows: np.ndarray
     closed: np.ndarray
+    vertex_reversed: np.ndarray | None = None
     skipped: list[dict] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
 
@@ -397,7 +400,8 @@ def assemble(xy: np.ndarray, starts: np.ndarray, ends: np.ndarray, part_row: np.
     lasts = coords[offsets[1:] - 1]
     closed = np.hypot(*(firsts - lasts).T) <= max(tolerance, 1e-9)
     return Chains(coords=coords, offsets=offsets, vertex_row=part_row[part][rep],
-                  measure=measure, crs=None, rows=rows, closed=closed)
+                  measure=measure, crs=None, rows=rows, closed=closed,
+                  vertex_reversed=reverse[rep])
 
 
 def _cluster(points: np.ndarray, tolerance: float) -> np.ndarray:

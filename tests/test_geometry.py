@@ -212,3 +212,22 @@ def test_scaling_the_line_scales_the_radius(scale):
     base = _curves([xy]).curves["radius_m"].iloc[0]
     got = _curves([xy * scale]).curves["radius_m"].iloc[0]
     assert got == pytest.approx(base * scale, rel=1e-3)
+
+
+def test_direction_follows_the_feature_a_curve_lies_on():
+    """Two features digitised against each other, joined into one chain: each curve's
+    direction is reported as its own feature is digitised."""
+    import curvescan
+
+    els = [Element("tangent", 200.0, 0, 0)]
+    els += curve_elements(150.0, 150.0, 0.0, 0.0, True, 1)
+    els += [Element("tangent", 300.0, 0, 0)]
+    els += curve_elements(200.0, 150.0, 0.0, 0.0, True, 2)
+    els += [Element("tangent", 200.0, 0, 0)]
+    xy = _digitise(build(els), 5.0)
+    cut = len(xy) // 2
+    frame = frame_from_lines([xy[:cut + 1], xy[cut:][::-1]])  # second feature reversed
+    res = curvescan.scan(frame, crs=CRS)
+    c = res.curves.sort_values("radius_m")
+    assert list(c["direction"]) == ["left", "right"]
+    assert list(c["src_fids"]) == ["0", "1"]

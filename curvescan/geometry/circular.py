@@ -98,19 +98,34 @@ def _core(prof: Profile, pf: np.ndarray, pl: np.ndarray, scale: np.ndarray):
 def _vertex_range(prof: Profile, lo: np.ndarray, hi: np.ndarray, vlo: np.ndarray,
                   vhi: np.ndarray, minimum: int = 3):
     """Vertex index range [i0, i1) with measures in [lo, hi], widened to ``minimum``
-    vertices within [vlo, vhi)."""
+    vertices within [vlo, vhi).
+
+    Each widening step takes the neighbouring vertex nearer to the middle of [lo, hi], so
+    the choice does not depend on the direction the line was digitised in.
+    """
     i0 = find(prof.gm, lo, side="left")
     i1 = find(prof.gm, hi, side="right")
     i0, i1 = np.maximum(i0, vlo), np.minimum(i1, vhi)
     i1 = np.maximum(i1, i0)
+    mid = 0.5 * (lo + hi)
+    last = len(prof.gm) - 1
     for _ in range(minimum):
         short = (i1 - i0) < minimum
-        grow_left = short & (i0 > vlo)
-        i0 = np.where(grow_left, i0 - 1, i0)
-        short = (i1 - i0) < minimum
-        grow_right = short & (i1 < vhi)
-        i1 = np.where(grow_right, i1 + 1, i1)
+        can_left = short & (i0 > vlo)
+        can_right = short & (i1 < vhi)
+        d_left = np.where(can_left, mid - prof.gm[np.clip(i0 - 1, 0, last)], np.inf)
+        d_right = np.where(can_right, prof.gm[np.clip(i1, 0, last)] - mid, np.inf)
+        go_left = can_left & (d_left <= d_right)
+        go_right = can_right & ~go_left
+        i0 = np.where(go_left, i0 - 1, i0)
+        i1 = np.where(go_right, i1 + 1, i1)
     return i0, i1
+
+
+def _nearest_vertex(prof: Profile, m: np.ndarray) -> np.ndarray:
+    """Index of the vertex whose global measure is nearest to ``m``."""
+    j = np.clip(np.searchsorted(prof.gm, m), 1, len(prof.gm) - 1)
+    return np.where(m - prof.gm[j - 1] <= prof.gm[j] - m, j - 1, j)
 
 
 def _fit(prof: Profile, i0: np.ndarray, i1: np.ndarray) -> CircleFit:
@@ -200,7 +215,7 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         cf, cl = _core(prof, pf, pl, scale)
         i0, i1 = _vertex_range(prof, prof.gs[cf], prof.gs[cl], vlo, vhi, minimum=SEED_VERTICES)
         centre_m = 0.5 * (prof.gs[cf] + prof.gs[cl])
-        centre = np.clip(find(prof.gm, centre_m), i0, np.maximum(i1 - 1, i0))
+        centre = np.clip(_nearest_vertex(prof, centre_m), i0, np.maximum(i1 - 1, i0))
         fit = _fit(prof, i0, i1)
         for _ in range(4):
             tol = np.maximum(2.5 * prof.sigma[chain], tolerance_floor_m)
