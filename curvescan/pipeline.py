@@ -20,7 +20,14 @@ import pandas as pd
 
 from . import assess, physics, terrain
 from ._version import __version__
-from .attributes import first_value, reduce_rows, rows_on, src_fid_text
+from .attributes import (
+    first_value,
+    orient_to_features,
+    reduce_rows,
+    reversed_at,
+    rows_on,
+    src_fid_text,
+)
 from .cautions import CAUTION
 from .config import SCAN_PARAMETERS, make_config
 from .errors import DataQualityWarning, InputError
@@ -244,6 +251,11 @@ def _layers(curves: pd.DataFrame, segments: pd.DataFrame, chains: Any,
     geom = substrings(chains, curves["chain_id"].to_numpy(), curves["s_start_m"].to_numpy(),
                       curves["s_end_m"].to_numpy())
     curves_g = gpd.GeoDataFrame(curves, geometry=geom, crs=crs)
+    # the stages work in the chain's direction; remember where a curve's own feature
+    # runs the other way, to report directions as that feature is digitised
+    curves_g["_against"] = reversed_at(
+        chains, curves["chain_id"].to_numpy(),
+        0.5 * (curves["circ_start_m"].to_numpy() + curves["circ_end_m"].to_numpy()))
     judged = assess.evaluate(curves_g, frame, chains, config)
     curves_g = judged.curves
     hz = gpd.GeoDataFrame(judged.hazards, geometry="geometry", crs=crs)
@@ -260,17 +272,29 @@ def _layers(curves: pd.DataFrame, segments: pd.DataFrame, chains: Any,
     out = []
     winter = gpd.GeoDataFrame(judged.winter, geometry="geometry", crs=crs)
     for layer in (curves_g, segments_g, hz, winter):
-        layer = layer.drop(columns=[c for c in layer.columns if c.startswith("attr_")])
+        if "_against" in layer.columns:
+            layer = orient_to_features(layer, layer["_against"].to_numpy(dtype=bool))
+        layer = layer.drop(columns=[c for c in layer.columns
+                                    if c.startswith("attr_") or c == "_against"])
         layer = to_output_crs(layer, frame.crs, config.output_crs)
         out.append(order_columns(layer, CONTRACT_FIELDS if len(out) < 3 else ()))
     return out[0], out[1], out[2], {"winter": out[3]}, judged.summary
 
 
+def _covered_fids(texts: pd.Series) -> set:
+    """Return the source ids named in comma-separated id texts (vectorised in Arrow)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    text = pa.array(texts.astype(str).to_numpy(), pa.string())
+    parts = pc.list_flatten(pc.split_pattern(text, ","))
+    parts = pc.filter(parts, pc.not_equal(parts, ""))
+    return set(np.unique(pc.cast(parts, pa.int64()).to_numpy()).tolist())
+
+
 def _run_record(source, dem, config, chains, frame, curves, hazards, segments, speed_report,
                 messages, timings) -> dict[str, Any]:
-    covered = set()
-    for text in segments["src_fids"]:
-        covered.update(int(t) for t in str(text).split(",") if t)
+    covered = _covered_fids(segments["src_fids"])
     skipped = list(chains.skipped)
     skipped_ids = {s["src_fid"] for s in skipped}
     lost = sorted(set(frame["src_fid"].astype(int)) - covered - skipped_ids)
