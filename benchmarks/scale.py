@@ -176,6 +176,7 @@ def run_child(kind: str, *args: str) -> dict:
     code = (f"import json, sys, resource; sys.path.insert(0, {str(Path(__file__).parent)!r});"
             f"import scale; r = scale.child_{kind}(*sys.argv[1:]);"
             "r['peak_mb'] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024;"
+            "r['worker_peak_mb'] = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024;"
             "print('@@' + json.dumps(r))")
     t = time.perf_counter()
     proc = subprocess.run([sys.executable, "-c", code, *args], capture_output=True, text=True)
@@ -226,8 +227,10 @@ def show(row: dict) -> None:
         if io:
             extra = (f", ratio b/a {r['total_s'] / io['total_s']:.2f}, peak/frame "
                      f"{(r['peak_mb'] - r['base_mb']) / max(io['frame_mb'], 1):.2f}")
+        workers = (f", largest worker process {r['worker_peak_mb']:.0f} MB"
+                   if r.get("worker_peak_mb", 0) > 1 else "")
         print(f"({key}) {r['total_s']:.2f} s, peak {r['peak_mb']:.0f} MB "
-              f"(interpreter {r['base_mb']:.0f} MB){extra}; curves {r['curves']}")
+              f"(interpreter {r['base_mb']:.0f} MB){workers}{extra}; curves {r['curves']}")
         print("    stages: " + ", ".join(f"{k} {v:.2f}" for k, v in r["timings"].items()
                                          if isinstance(v, (int, float))))
 

@@ -148,7 +148,7 @@ def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Surve
 
 def handover_task(src: Any, i: int, payload: Any, config: Any, offset: int,
                   rows: np.ndarray):
-    """The rows (local indices) of partition ``i`` that other partitions need."""
+    """Return the rows (local indices) of partition ``i`` that other partitions need."""
     frame = _load_partition(src, i, payload, config, offset)
     out = frame.iloc[rows].copy()
     out["_global_row"] = rows + offset
@@ -217,7 +217,7 @@ def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, 
 # ----------------------------------------------------------------------------- client side
 
 def _client(config: Any):
-    """A distributed client: the given scheduler's, or a local cluster's (closed by caller)."""
+    """Return a client of the given scheduler, or of a new local cluster (caller closes)."""
     try:
         from distributed import Client, LocalCluster
     except ImportError:  # pragma: no cover - depends on the environment
@@ -444,7 +444,7 @@ class _Merger:
         self.terrain = out["terrain"] or self.terrain
 
     def layers(self, crs: Any, config: Any) -> dict[str, Any]:
-        """The kept layers, concatenated; hazards and winter re-ranked over all parts."""
+        """Return the kept layers, concatenated; hazards and winter re-ranked over all parts."""
         from . import assess
 
         out = {name: _concat(frames, crs) for name, frames in self.kept.items()}
@@ -456,7 +456,7 @@ class _Merger:
 
 
 def pd_frame(frame: Any) -> Any:
-    """A plain DataFrame copy (no geometry) of ``frame``."""
+    """Return a plain DataFrame copy of ``frame``."""
     import pandas as pd
 
     return pd.DataFrame(frame).copy()

@@ -61,7 +61,7 @@ def _canonical(layer: pd.DataFrame) -> pd.DataFrame:
 
 
 def assert_same_layers(a, b) -> None:
-    """Every layer of ``a`` equals ``b``'s (ids aside; floats to 1e-7: round-off differs with the chains around)."""
+    """Every layer of ``a`` equals ``b``'s (ids aside; floats to 1e-7 relative)."""
     pairs = [("curves", a.curves, b.curves), ("segments", a.segments, b.segments),
              ("hazards", a.hazards, b.hazards)]
     pairs += [(k, v, b.extra[k]) for k, v in a.extra.items()]

@@ -69,7 +69,7 @@ class PartitionSource:
     columns: list[str] = field(default_factory=list)
 
     def payload(self, i: int) -> Any:
-        """What a task needs besides this description to read partition ``i``.
+        """Return what a task needs besides this description to read partition ``i``.
 
         For an in-memory frame, the slice itself (possibly a future of a scattered slice,
         which dask resolves when it is passed as a task argument); else None.
@@ -77,7 +77,7 @@ class PartitionSource:
         return self.parts[i] if self.kind == "frame" else None
 
     def light(self) -> "PartitionSource":
-        """This description without in-memory slices (cheap to send with every task)."""
+        """Return the description without in-memory slices (cheap to send with every task)."""
         if self.kind != "frame":
             return self
         return PartitionSource(self.kind, self.path, self.crs, self.bounds, self.n,
