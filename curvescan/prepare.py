@@ -34,7 +34,7 @@ from .declare import Param
 from .errors import CRSError, DataQualityWarning, InputError
 from .read import parse_crs
 
-__all__ = ["PARAMETERS", "Chains", "prepare", "working_crs"]
+__all__ = ["PARAMETERS", "Chains", "prepare", "working_crs", "point_scale"]
 
 PARAMETERS: tuple[Param, ...] = (
     Param("crs", "crs", None,
@@ -149,6 +149,26 @@ def working_crs(frame: gpd.GeoDataFrame, override: Any = None) -> tuple[pyproj.C
     crs = ProjectedCRS(conversion=conversion, geodetic_crs=src.geodetic_crs,
                        name=f"curvescan local TM {lat0:.4f} {lon0:.4f}")
     return crs, f"working CRS: local transverse Mercator at {lat0:.4f}, {lon0:.4f} ({why})"
+
+
+def point_scale(crs: pyproj.CRS, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Point scale factor of ``crs`` at map points: map length / ground length.
+
+    For a conformal projection (transverse Mercator, UTM, Lambert conformal) lengths at a
+    point scale alike in every direction, so a radius measured on the map divided by this
+    factor is the radius on the ground. Returns 1 where pyproj cannot tell.
+    """
+    x = np.asarray(x, dtype=float)
+    if x.size == 0:
+        return np.ones(0)
+    try:
+        to_geo = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+        lon, lat = to_geo.transform(x, np.asarray(y, dtype=float))
+        f = pyproj.Proj(crs).get_factors(lon, lat)
+        k = np.sqrt(np.asarray(f.meridional_scale) * np.asarray(f.parallel_scale))
+    except (pyproj.exceptions.ProjError, pyproj.exceptions.CRSError, RuntimeError):
+        return np.ones_like(x)
+    return np.where(np.isfinite(k) & (k > 0), k, 1.0)
 
 
 def _require_metric(crs: pyproj.CRS, what: str, allow_feet: bool = False) -> None:

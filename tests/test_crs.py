@@ -49,3 +49,24 @@ def test_web_mercator_input_is_reprojected_for_true_radius():
     result = curvescan.scan(roads)
     assert result.curves["radius_m"].iloc[0] == pytest.approx(300.0, rel=0.005)
     assert "scale error" in " ".join(result.run["notes"])
+
+
+def test_kept_utm_input_gives_ground_radius():
+    """A curve drawn in UTM far from the central meridian: the map radius is the ground
+    radius times the point scale factor (pyproj's get_factors), and the reported radius is
+    the ground radius."""
+    from curvescan.prepare import point_scale
+    from curvescan.synthetic import Element, build, curve_elements
+
+    els = [Element("tangent", 200.0, 0, 0)] + curve_elements(300.0, 250.0) + [
+        Element("tangent", 200.0, 0, 0)]
+    al = build(els)
+    s = np.append(np.arange(0, al.length_m, 5.0), al.length_m)
+    xy = al.points(s) + [750_000.0, 5_100_000.0]  # 250 km east of 9 E in zone 32N
+    roads = gpd.GeoDataFrame(geometry=[shapely.LineString(xy)], crs="EPSG:32632")
+    result = curvescan.scan(roads)
+    k = point_scale(pyproj.CRS("EPSG:32632"), np.array([xy[:, 0].mean()]),
+                    np.array([xy[:, 1].mean()]))[0]
+    assert k == pytest.approx(1.00037, abs=2e-5)
+    assert result.curves["radius_m"].iloc[0] == pytest.approx(300.0 / k, rel=2e-5)
+    assert "input CRS" in " ".join(result.run["notes"])
