@@ -34,7 +34,8 @@ from .errors import DataQualityWarning, InputError
 from .export import CONTRACT_FIELDS, order_columns, run_table, to_output_crs, write_gpkg
 from .geometry import find_curves
 from .geometry.pieces import substrings
-from .prepare import prepare
+from .geometry.resample import global_measure, interpolate
+from .prepare import point_scale, prepare
 from .read import load
 from .speeds import parse_speeds
 
@@ -174,6 +175,7 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     geo = _timed(timings, "geometry", lambda: find_curves(chains, config))
     report("geometry", 0.5)
     curves = geo.curves
+    _to_ground(curves, chains)
     curves.attrs["crs"] = chains.crs.to_wkt()
     speed_report = _attach_attributes(curves, frame, chains, config)
     ter = _timed(timings, "terrain",
@@ -189,6 +191,32 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
                     lambda: _layers(curves, geo.segments, chains, frame, config))
     report("assess", 0.95)
     return layers, speed_report, terrain_record
+
+
+#: Curve fields that are ground lengths: divided by the working CRS's point scale factor.
+_GROUND_LENGTHS = ("radius_m", "radius_se_m", "length_m", "circular_length_m",
+                   "transition_in_m", "transition_out_m", "fit_rmse_m")
+
+
+def _to_ground(curves: pd.DataFrame, chains: Any) -> None:
+    """Turn map lengths into ground lengths in place (``scale_factor`` = map / ground).
+
+    The local transverse Mercator the scan chooses is true to scale within 0.1 %; a kept
+    projected input CRS (UTM: 0.9996 on its central meridian) is corrected here. Measures
+    along the chain (``s_*_m``, ``circ_*_m``) stay map measures: they locate the curve.
+    """
+    if not len(curves):
+        curves["scale_factor"] = pd.Series(dtype=float)
+        return
+    gm, base = global_measure(chains.measure, chains.offsets)
+    chain = curves["chain_id"].to_numpy()
+    mid = 0.5 * (curves["circ_start_m"].to_numpy() + curves["circ_end_m"].to_numpy())
+    xy = interpolate(chains.coords, gm, chains.offsets, chain, mid + base[chain])
+    k = point_scale(chains.crs, xy[:, 0], xy[:, 1])
+    for col in _GROUND_LENGTHS:
+        if col in curves.columns:
+            curves[col] = curves[col].to_numpy(dtype=float) / k
+    curves["scale_factor"] = k
 
 
 def _timed(timings: dict, name: str, fn: Callable[[], Any]) -> Any:
