@@ -14,7 +14,7 @@ import pandas as pd
 
 from ..declare import Param
 from ._ragged import expand, find, group_quantile
-from .circular import Profile, circular_parts, cumulative_turn
+from .circular import Profile, circular_parts, cumulative_turn, half_level_span
 from .noise import vertex_noise
 from .pieces import piece_table, resolve_overlaps
 from .resample import chord_curvature, global_measure, make_stations, resample
@@ -311,27 +311,14 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
 
 def _half_level_extent(prof, p, sign, scale, gbase):
     """Stretch around each part's middle where curvature stays above half of 1/R."""
-    n = len(sign)
-    a = find(prof.gs, p["lo"] - prof.half_m[scale, p["chain"].astype(np.int64)],
-                        side="left")
-    b = find(prof.gs, p["hi"] + prof.half_m[scale, p["chain"].astype(np.int64)],
-                        side="right") - 1
     chain = p["chain"].astype(np.int64)
-    a = np.maximum(a, np.searchsorted(prof.chain, chain, side="left"))
-    b = np.minimum(b, np.searchsorted(prof.chain, chain, side="right") - 1)
-    b = np.maximum(a, b)
-    centre = np.clip(find(prof.gs, 0.5 * (p["lo"] + p["hi"]), side="left"), a, b)
-    idx, grp = expand(a, b - a + 1)
-    low = prof.k(scale[grp], idx) * sign[grp] < 0.5 / p["radius"][grp]
-    big = np.iinfo(np.int64).max
-    right = np.full(n, big)
-    sel = low & (idx > centre[grp])
-    np.minimum.at(right, grp[sel], idx[sel])
-    left = np.full(n, -1)
-    sel = low & (idx < centre[grp])
-    np.maximum.at(left, grp[sel], idx[sel])
-    hi = np.where(right == big, prof.gs[b], prof.gs[np.minimum(right, len(prof.gs) - 1)])
-    lo = np.where(left < 0, prof.gs[a], prof.gs[np.maximum(left, 0)])
+    reach = prof.half_m[scale, chain]
+    a = np.maximum(find(prof.gs, p["lo"] - reach, side="left"),
+                   np.searchsorted(prof.chain, chain, side="left"))
+    b = np.minimum(find(prof.gs, p["hi"] + reach, side="right") - 1,
+                   np.searchsorted(prof.chain, chain, side="right") - 1)
+    lo, hi = half_level_span(prof, a, np.maximum(a, b), 0.5 * (p["lo"] + p["hi"]),
+                             p["radius"], sign, scale)
     return lo - gbase, hi - gbase
 
 

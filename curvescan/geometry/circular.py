@@ -30,9 +30,12 @@ __all__ = ["Profile", "circular_parts"]
 #: A piece found after the first round must be this flat: relative change of curvature
 #: across it (slope times length over mean) below this value.
 PLATEAU_CHANGE = 0.6
-ROUNDS = 3
-#: Share of a later-round piece that its circular part must cover.
-PIECE_COVER = 0.4
+ROUNDS = 5
+#: Share of the curvature half window skipped beyond a circular part before peeling: the
+#: window blurs the join with whatever follows.
+PEEL_GAP = 1.0
+#: Share of the half-curvature stretch that a later-round circular part must cover.
+PIECE_COVER = 0.5
 #: Vertices a seed fit takes at least (where the piece has them).
 SEED_VERTICES = 5
 
@@ -120,6 +123,27 @@ def _vertex_range(prof: Profile, lo: np.ndarray, hi: np.ndarray, vlo: np.ndarray
         i0 = np.where(go_left, i0 - 1, i0)
         i1 = np.where(go_right, i1 + 1, i1)
     return i0, i1
+
+
+def half_level_span(prof: Profile, a: np.ndarray, b: np.ndarray, centre_m: np.ndarray,
+                    radius: np.ndarray, sign: np.ndarray, scale: np.ndarray):
+    """Global measures of the stretch within stations ``a..b`` around ``centre_m`` where the
+    curvature (times ``sign``) stays at or above half of ``1/radius``."""
+    n = len(a)
+    centre = np.clip(find(prof.gs, centre_m, side="left"), a, b)
+    idx, grp = expand(a, b - a + 1)
+    low = prof.k(scale[grp], idx) * sign[grp] < 0.5 / radius[grp]
+    big = np.iinfo(np.int64).max
+    right = np.full(n, big)
+    sel = low & (idx > centre[grp])
+    np.minimum.at(right, grp[sel], idx[sel])
+    left = np.full(n, -1)
+    sel = low & (idx < centre[grp])
+    np.maximum.at(left, grp[sel], idx[sel])
+    last = len(prof.gs) - 1
+    hi = np.where(right == big, prof.gs[b], prof.gs[np.minimum(right, last)])
+    lo = np.where(left < 0, prof.gs[a], prof.gs[np.maximum(left, 0)])
+    return lo, hi
 
 
 def _nearest_vertex(prof: Profile, m: np.ndarray) -> np.ndarray:
@@ -234,16 +258,19 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         hi = prof.gm[np.maximum(i1 - 1, i0)]
         accept = np.isfinite(fit.radius) & (i1 - i0 >= 3)
         if rnd > 0:
-            # a second arc must fill much of what is left, and be flat: a stretch of a
-            # transition fits a circle only over a short part of the piece
-            cover = (hi - lo) >= PIECE_COVER * (prof.gs[pl] - prof.gs[pf])
+            # a second arc must fill most of the stretch where the curvature is at least
+            # half of its own, and be flat: a stretch of a transition fits a circle only
+            # over a short part of the rising curvature
+            span_lo, span_hi = half_level_span(prof, pf, pl, 0.5 * (lo + hi), fit.radius,
+                                               sign, scale)
+            cover = (hi - lo) >= PIECE_COVER * (span_hi - span_lo)
             accept &= cover & _is_plateau(prof, lo, hi, sign, scale, fit.radius)
         out.append({"piece": origin[accept], "chain": chain[accept], "scale": scale[accept],
                     "lo": lo[accept], "hi": hi[accept], "i0": i0[accept], "i1": i1[accept],
                     "round": np.full(accept.sum(), rnd),
                     **{k: getattr(fit, k)[accept] for k in fields}})
         # peel: the rest of each piece beyond the curvature window on either side
-        gap = prof.half_m[scale, chain]
+        gap = PEEL_GAP * prof.half_m[scale, chain]
         left_end = _station_at(prof, lo - gap, "right") - 1
         right_start = _station_at(prof, hi + gap, "left")
         found = accept | (rnd == 0)
