@@ -24,7 +24,7 @@ from .stations import Stations
 __all__ = ["PARAMETERS", "GeometryResult", "find_curves", "Stations"]
 
 PARAMETERS: tuple[Param, ...] = (
-    Param("station_spacing_m", "float", 2.0,
+    Param("station_spacing_m", "float", 4.0,
           "Distance between resampled stations along each chain.", unit="m",
           stage="geometry", minimum=0.25, maximum=50.0),
     Param("smoothing_length_m", "float", 40.0,
@@ -154,14 +154,14 @@ def _radius_se(parts: dict, sigma_chain: np.ndarray, tolerance_floor_m: float) -
     from claiming a tiny error, and a Student-t factor makes two standard errors cover
     about 95 %.
     """
-    from scipy.stats import t as student
+    from scipy.special import stdtrit  # Student-t quantile, without scipy.stats' import cost
 
     n = parts["n"].astype(float)
     dof = np.maximum(n - 3.0, 0.0)
     rss = parts["rmse"] ** 2 * n
     sig = sigma_chain[parts["chain"].astype(np.int64)]
     pooled = np.sqrt((rss + PRIOR_DOF * sig ** 2) / (dof + PRIOR_DOF))
-    factor = student.ppf(0.975, dof + PRIOR_DOF) / 2.0
+    factor = stdtrit(dof + PRIOR_DOF, 0.975) / 2.0
     statistical = parts["radius_sd_unit"] * pooled * factor
     # systematic part: departures from the circle that the consensus tolerance lets in
     # (transition vertices near the arc's ends) do not average out over the vertices

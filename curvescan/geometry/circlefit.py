@@ -126,22 +126,32 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
     a, b, r = np.where(live, a, 0.0), np.where(live, b, 0.0), np.where(live, r, 1.0)
     lam = np.full(n_groups, 1e-6)
     cost = _cost(X, Y, group, n_groups, a, b, r)
+    active = live.copy()
+    eye = np.eye(3)
     for _ in range(iterations):
-        JTJ, JTd = _normal(X, Y, group, n_groups, a, b, r)
-        damp = JTJ + lam[:, None, None] * np.eye(3) * (np.trace(JTJ, axis1=1, axis2=2)[:, None, None] + 1e-12)
-        try:
-            step = np.linalg.solve(damp, -JTd[:, :, None])[:, :, 0]
-        except np.linalg.LinAlgError:
-            step = np.zeros((n_groups, 3))
-        step = np.where(np.isfinite(step), step, 0.0)
+        pts = np.flatnonzero(active[group])
+        if pts.size == 0:
+            break
+        gX, gY, gg = X[pts], Y[pts], group[pts]
+        JTJ, JTd = _normal(gX, gY, gg, n_groups, a, b, r)
+        scale = np.trace(JTJ, axis1=1, axis2=2)[:, None, None] + 1e-12
+        with np.errstate(invalid="ignore", over="ignore"):
+            try:
+                step = np.linalg.solve(JTJ + lam[:, None, None] * eye * scale,
+                                       -JTd[:, :, None])[:, :, 0]
+            except np.linalg.LinAlgError:
+                step = np.zeros((n_groups, 3))
+        step = np.where(np.isfinite(step) & active[:, None], step, 0.0)
         na, nb, nr = a + step[:, 0], b + step[:, 1], r + step[:, 2]
-        new_cost = _cost(X, Y, group, n_groups, na, nb, nr)
-        better = new_cost <= cost
+        new_cost = cost.copy()
+        new_cost[active] = _cost(gX, gY, gg, n_groups, na, nb, nr)[active]
+        better = active & (new_cost <= cost)
         a, b, r = np.where(better, na, a), np.where(better, nb, b), np.where(better, nr, r)
         cost = np.where(better, new_cost, cost)
         lam = np.where(better, lam * 0.3, lam * 10.0)
-        if np.all(np.abs(step[:, 2]) <= 1e-10 * np.abs(r) + 1e-12):
-            break
+        # a group is done when its step is negligible or damping has given up
+        tiny = np.abs(step).max(axis=1) <= 1e-10 * (np.abs(r) + 1.0)
+        active &= ~(tiny | (lam > 1e6))
     JTJ, _ = _normal(X, Y, group, n_groups, a, b, r)
     dof = n - 3
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -183,7 +193,21 @@ def _normal(X, Y, group, n_groups, a, b, r):
     return JTJ, JTd
 
 
-def fit_circles(x: np.ndarray, y: np.ndarray, group: np.ndarray, n_groups: int) -> CircleFit:
-    """Hyper fit followed by geometric refinement, per group."""
+def fit_circles(x: np.ndarray, y: np.ndarray, group: np.ndarray, n_groups: int,
+                refine: bool = True) -> CircleFit:
+    """Hyper fit followed by geometric refinement, per group.
+
+    With ``refine=False`` only the (non-iterative) hyper fit is made, with its RMSE; the
+    standard errors are then NaN. It is close enough to decide which vertices lie on the
+    circle, and several times cheaper.
+    """
     cx, cy, r = hyper_fit(x, y, group, n_groups)
-    return geometric_fit(x, y, group, n_groups, cx, cy, r)
+    if refine:
+        return geometric_fit(x, y, group, n_groups, cx, cy, r)
+    n = np.bincount(group, minlength=n_groups)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        d = np.hypot(x - cx[group], y - cy[group]) - r[group]
+        rmse = np.sqrt(_sums(group, d * d, n_groups) / n)
+    nan = np.full(n_groups, np.nan)
+    return CircleFit(cx=cx, cy=cy, radius=r, radius_se=nan, rmse=rmse, n=n.astype(int),
+                     radius_sd_unit=nan.copy())

@@ -152,9 +152,9 @@ def _nearest_vertex(prof: Profile, m: np.ndarray) -> np.ndarray:
     return np.where(m - prof.gm[j - 1] <= prof.gm[j] - m, j - 1, j)
 
 
-def _fit(prof: Profile, i0: np.ndarray, i1: np.ndarray) -> CircleFit:
+def _fit(prof: Profile, i0: np.ndarray, i1: np.ndarray, refine: bool = True) -> CircleFit:
     idx, grp = expand(i0, i1 - i0)
-    return fit_circles(prof.coords[idx, 0], prof.coords[idx, 1], grp, len(i0))
+    return fit_circles(prof.coords[idx, 0], prof.coords[idx, 1], grp, len(i0), refine=refine)
 
 
 def _consensus(prof: Profile, fit: CircleFit, centre: np.ndarray, vlo, vhi, tol):
@@ -240,7 +240,7 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         i0, i1 = _vertex_range(prof, prof.gs[cf], prof.gs[cl], vlo, vhi, minimum=SEED_VERTICES)
         centre_m = 0.5 * (prof.gs[cf] + prof.gs[cl])
         centre = np.clip(_nearest_vertex(prof, centre_m), i0, np.maximum(i1 - 1, i0))
-        fit = _fit(prof, i0, i1)
+        fit = _fit(prof, i0, i1, refine=False)
         for _ in range(4):
             tol = np.maximum(2.5 * prof.sigma[chain], tolerance_floor_m)
             g0, g1 = _consensus(prof, fit, centre, vlo, vhi, tol)
@@ -248,12 +248,16 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
             g0, g1 = np.where(usable, g0, i0), np.where(usable, g1, i1)
             changed = (g0 != i0) | (g1 != i1)
             i0, i1 = g0, g1
-            new = _fit(prof, i0, i1)
+            new = _fit(prof, i0, i1, refine=False)
             ok = np.isfinite(new.radius)
             for name in fields:
                 getattr(fit, name)[ok] = getattr(new, name)[ok]
             if not changed.any():
                 break
+        final = _fit(prof, i0, i1)  # geometric refinement once the vertex set is settled
+        ok = np.isfinite(final.radius)
+        for name in fields:
+            getattr(fit, name)[ok] = getattr(final, name)[ok]
         lo = prof.gm[i0]
         hi = prof.gm[np.maximum(i1 - 1, i0)]
         accept = np.isfinite(fit.radius) & (i1 - i0 >= 3)
