@@ -17,7 +17,13 @@ from ._ragged import expand, find, group_quantile
 from .circular import Profile, circular_parts, cumulative_turn, half_level_span
 from .noise import vertex_noise
 from .pieces import piece_table, resolve_overlaps
-from .resample import chord_curvature, global_measure, make_stations, resample
+from .resample import (
+    chord_curvature,
+    global_measure,
+    make_stations,
+    resample,
+    station_heading,
+)
 from .segment import find_runs
 from .stations import Stations
 
@@ -95,16 +101,22 @@ def find_curves(chains: Any, config: Any) -> GeometryResult:
     spacing = config.station_spacing_m
     xy, s, chain, st_off = resample(chains.coords, chains.measure, chains.offsets, spacing)
     half_fine = _chain_half_windows(chains, spacing, config.smoothing_length_m)
-    kf, heading = chord_curvature(xy, s, chain, st_off, half_fine)
+    kf = chord_curvature(xy, s, chain, st_off, half_fine)
+    heading = station_heading(xy, chain, st_off)
     gm, base = global_measure(chains.measure, chains.offsets)
     # noise per chain, with the sagitta of real curvature removed
-    k_wide, _ = chord_curvature(xy, s, chain, st_off, 3 * half_fine)
-    k_at_vertex = np.interp(gm, s + base[chain], k_wide)
+    gs = s + base[chain]
+    j = np.clip(np.searchsorted(gs, gm), 1, len(gs) - 1)
+    mark = np.zeros(len(gs), dtype=bool)
+    mark[j - 1] = mark[j] = True  # the stations either side of each vertex
+    near = np.flatnonzero(mark)
+    k_wide = chord_curvature(xy, s, chain, st_off, 3 * half_fine, at=near)
+    k_at_vertex = np.interp(gm, gs[near], k_wide)
     sigma = vertex_noise(chains.coords, chains.offsets, chains.measure, k_at_vertex)
     # detection scale: long enough that noise curvature stays well below 1/max_radius
     det_m = np.sqrt(10.0 * sigma * config.max_radius_m)
     half_det = np.maximum(half_fine, np.round(np.minimum(det_m, 150.0) / spacing).astype(np.int64))
-    kd, _ = chord_curvature(xy, s, chain, st_off, half_det)
+    kd = chord_curvature(xy, s, chain, st_off, half_det)
     stations = make_stations(xy, s, chain, st_off, kf, heading)
     kappa_on = 1.0 / config.max_radius_m
     first, last = find_runs(
@@ -116,8 +128,13 @@ def find_curves(chains: Any, config: Any) -> GeometryResult:
     # curvature at several scales; each piece is read at the finest one its noise allows
     max_half = np.maximum(np.round(150.0 / spacing).astype(np.int64), half_fine)
     halves = [np.minimum(half_fine * f, max_half) for f in SCALE_FACTORS]
-    K = np.stack([kf] + [chord_curvature(xy, s, chain, st_off, h)[0] for h in halves[1:]])
-    prof = Profile(s=s, gs=s + base[chain], K=K, chain=chain, gm=gm, coords=chains.coords,
+    # the coarser scales are read only in and around curve runs: compute them there
+    active = _around_runs(first, last, s, chain, st_off, half_det * spacing + 2 * 150.0)
+    K = np.zeros((len(SCALE_FACTORS), len(s)))
+    K[0] = kf
+    for i, h in enumerate(halves[1:], start=1):
+        K[i, active] = chord_curvature(xy, s, chain, st_off, h, at=active)
+    prof = Profile(s=s, gs=gs, K=K, chain=chain, gm=gm, coords=chains.coords,
                    v_off=chains.offsets, sigma=sigma,
                    half_m=np.stack(halves).astype(float) * spacing)
     idx, grp = expand(first, last - first + 1)
@@ -129,6 +146,24 @@ def find_curves(chains: Any, config: Any) -> GeometryResult:
     curves = _assemble(prof, parts, first, last, half_det * spacing, base, chains, config)
     segments = piece_table(chains, curves)
     return GeometryResult(stations=stations, curves=curves, segments=segments)
+
+
+def _around_runs(first, last, s, chain, st_off, margin_m):
+    """Station indices within each run, extended by the run's length plus ``margin_m``
+    (per chain) on both sides, clipped to the chain."""
+    if len(first) == 0:
+        return np.zeros(0, dtype=np.int64)
+    ch = chain[first]
+    run_len = s[last] - s[first]
+    reach = run_len + margin_m[ch]
+    step = np.maximum(np.diff(s)[np.minimum(first, len(s) - 2)], 1e-9)
+    extra = np.ceil(reach / step).astype(np.int64)
+    a = np.maximum(first - extra, st_off[ch])
+    b = np.minimum(last + extra, st_off[ch + 1] - 1)
+    mark = np.zeros(len(s) + 1, dtype=np.int64)
+    np.add.at(mark, a, 1)
+    np.add.at(mark, b + 1, -1)
+    return np.flatnonzero(np.cumsum(mark[:-1]) > 0)
 
 
 #: Multiples of the fine half window at which curvature is computed.

@@ -10,7 +10,7 @@ import numpy as np
 
 from .stations import Stations
 
-__all__ = ["global_measure", "interpolate", "resample", "chord_curvature"]
+__all__ = ["global_measure", "interpolate", "resample", "chord_curvature", "station_heading"]
 
 
 def global_measure(measure: np.ndarray, offsets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -54,38 +54,52 @@ def resample(coords: np.ndarray, measure: np.ndarray, offsets: np.ndarray,
     return xy, s, chain, st_off
 
 
-def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray,
-                    st_off: np.ndarray, half_window: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np.ndarray,
+                    half_window: np.ndarray, at: np.ndarray | None = None) -> np.ndarray:
     """Curvature from the heading change between two chords of ``half_window`` stations.
 
-    At station ``j`` the chords are ``j-k -> j`` and ``j -> j+k``; curvature is their
-    heading difference divided by the distance between their midpoints. Chords measure
-    heading over a long base, so vertex noise affects the estimate far less than
+    At station ``j`` the chords are ``j-k -> j`` and ``j -> j+k``; curvature is the angle
+    between them divided by the distance between their midpoints. Chords measure heading
+    over a long base, so vertex noise affects the estimate far less than
     segment-by-segment headings do. Near chain ends the window is shifted inward, never
     across the end.
 
-    Returns ``(curvature, heading)``, heading in radians (``atan2``) of the local chord.
+    Parameters
+    ----------
+    half_window : ndarray of int
+        Half window in stations, per chain.
+    at : ndarray of int, optional
+        Compute only at these station indices (default: all).
+
+    Returns
+    -------
+    ndarray
+        Signed curvature (1/m, + left) at ``at`` (or at every station).
     """
-    n = len(s)
-    start = st_off[chain]
-    last = st_off[chain + 1] - 1
-    size = last - start
-    k = np.minimum(half_window[chain], size // 2)
-    idx = np.arange(n)
+    idx = np.arange(len(s)) if at is None else np.asarray(at, dtype=np.int64)
+    ch = chain[idx]
+    start = st_off[ch]
+    last = st_off[ch + 1] - 1
+    k = np.minimum(half_window[ch], (last - start) // 2)
     c = np.clip(idx, start + k, last - k)
     a, b = c - k, c + k
     d1 = xy[c] - xy[a]
     d2 = xy[b] - xy[c]
-    h1 = np.arctan2(d1[:, 1], d1[:, 0])
-    h2 = np.arctan2(d2[:, 1], d2[:, 0])
-    turn = (h2 - h1 + np.pi) % (2 * np.pi) - np.pi
+    # signed angle between the chords: one atan2 of cross and dot
+    cross = d1[:, 0] * d2[:, 1] - d1[:, 1] * d2[:, 0]
+    dot = d1[:, 0] * d2[:, 0] + d1[:, 1] * d2[:, 1]
+    turn = np.arctan2(cross, dot)
     span = 0.5 * (s[b] - s[a])
-    kappa = np.where((k > 0) & (span > 0), turn / np.where(span > 0, span, 1.0), 0.0)
-    lo = np.maximum(idx - 1, start)
-    hi = np.minimum(idx + 1, last)
+    return np.where((k > 0) & (span > 0), turn / np.where(span > 0, span, 1.0), 0.0)
+
+
+def station_heading(xy: np.ndarray, chain: np.ndarray, st_off: np.ndarray) -> np.ndarray:
+    """Direction of travel at each station (radians, ``atan2``), from its neighbours."""
+    idx = np.arange(len(xy))
+    lo = np.maximum(idx - 1, st_off[chain])
+    hi = np.minimum(idx + 1, st_off[chain + 1] - 1)
     dh = xy[hi] - xy[lo]
-    heading = np.arctan2(dh[:, 1], dh[:, 0])
-    return kappa, heading
+    return np.arctan2(dh[:, 1], dh[:, 0])
 
 
 def make_stations(xy, s, chain, st_off, kappa, heading) -> Stations:
