@@ -78,11 +78,9 @@ def write_gpkg(result: Any, path: str | Path, *, overwrite: bool = False) -> Pat
                 frame[col] = frame[col].astype("string")
         layers[name] = frame
     meta = {name: {"DESCRIPTION": desc} for name, desc in result.layer_descriptions().items()}
-    written = write_layers(path, layers, overwrite=overwrite, layer_metadata=meta)
-    hook = getattr(result, "after_write", None)
-    if callable(hook):
-        hook(written)
-    return written
+    hook = getattr(result, "after_write", None)  # e.g. layer styles, inside the atomic write
+    return write_layers(path, layers, overwrite=overwrite, layer_metadata=meta,
+                        finish=hook if callable(hook) else None)
 
 
 def to_output_crs(frame: gpd.GeoDataFrame, input_crs: Any, setting: str) -> gpd.GeoDataFrame:

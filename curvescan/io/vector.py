@@ -10,7 +10,7 @@ import os
 import tempfile
 import warnings
 from pathlib import Path
-from typing import Mapping
+from typing import Any, Callable, Mapping
 
 import geopandas as gpd
 import pandas as pd
@@ -145,12 +145,14 @@ def write_layers(
     *,
     overwrite: bool = False,
     layer_metadata: Mapping[str, Mapping[str, str]] | None = None,
+    finish: Callable[[str], Any] | None = None,
 ) -> Path:
     """Write several layers into one GeoPackage, atomically.
 
-    Layers are written in the given order to a temporary file in the target's folder,
-    which then replaces the target in one rename. Frames without geometry become
-    attribute tables.
+    Layers are written in the given order to a temporary file in the target's folder;
+    ``finish(temporary_path)`` may then add to it (layer styles), and only then does the
+    file replace the target in one rename. Frames without geometry become attribute
+    tables.
     """
     target = check_output_path(path, overwrite)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part.gpkg", dir=target.parent)
@@ -170,6 +172,8 @@ def write_layers(
                 pyogrio.write_dataframe(
                     pd.DataFrame(frame), tmp, use_arrow=True, **kwargs
                 )
+        if finish is not None:
+            finish(tmp)
         os.replace(tmp, target)
     except Exception as exc:
         if os.path.exists(tmp):
