@@ -128,9 +128,9 @@ def build(folder: str | Path, seed: int = 7, n_roads: int = 50) -> dict[str, Pat
     roads.loc[messy[2:3], "aadt"] = pd.NA
     dem = _carve(ground, pd.concat(dense, ignore_index=True))
     out = {"roads": folder / ROADS_FILE, "dem": folder / DEM_FILE}
-    if out["roads"].exists():
-        out["roads"].unlink()
-    roads.to_crs("EPSG:4326").to_file(out["roads"], layer="roads", driver="GPKG")
+    from .io.vector import write_layers
+
+    write_layers(out["roads"], {"roads": roads.to_crs("EPSG:4326")}, overwrite=True)
     transform = Affine(_CELL, 0, _ORIGIN[0], 0, -_CELL, _ORIGIN[1] + _SIZE[1])
     # stored as whole centimetres (int32, scale 0.01) to keep the file small
     write_dem(str(out["dem"]), np.round(dem * 100.0), transform, DEM_CRS, dtype="int32",
