@@ -14,7 +14,13 @@ import pandas as pd
 
 from ..declare import Param
 from ._ragged import expand, find, group_quantile
-from .circular import Profile, circular_parts, cumulative_turn, half_level_span
+from .circular import (
+    CONSENSUS_SIGMAS,
+    Profile,
+    circular_parts,
+    cumulative_turn,
+    half_level_span,
+)
 from .noise import vertex_noise
 from .pieces import piece_table, resolve_overlaps
 from .resample import (
@@ -200,7 +206,7 @@ def _radius_se(parts: dict, sigma_chain: np.ndarray, tolerance_floor_m: float) -
     statistical = parts["radius_sd_unit"] * pooled * factor
     # systematic part: departures from the circle that the consensus tolerance lets in
     # (transition vertices near the arc's ends) do not average out over the vertices
-    tol = np.maximum(2.5 * sig, tolerance_floor_m)
+    tol = np.maximum(CONSENSUS_SIGMAS * sig, tolerance_floor_m)
     amplitude = np.maximum(SYSTEMATIC_TOL_SHARE * tol, SYSTEMATIC_RMSE_SHARE * parts["rmse"])
     systematic = parts["radius_sd_unit"] * np.sqrt(n) * amplitude
     return np.hypot(statistical, systematic)

@@ -31,6 +31,8 @@ __all__ = ["Profile", "circular_parts"]
 #: across it (slope times length over mean) below this value.
 PLATEAU_CHANGE = 0.6
 ROUNDS = 5
+#: A vertex belongs to a circle within this many noise standard deviations.
+CONSENSUS_SIGMAS = 2.5
 #: Share of the curvature half window skipped beyond a circular part before peeling: the
 #: window blurs the join with whatever follows.
 PEEL_GAP = 1.0
@@ -242,7 +244,7 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         centre = np.clip(_nearest_vertex(prof, centre_m), i0, np.maximum(i1 - 1, i0))
         fit = _fit(prof, i0, i1, refine=False)
         for _ in range(4):
-            tol = np.maximum(2.5 * prof.sigma[chain], tolerance_floor_m)
+            tol = np.maximum(CONSENSUS_SIGMAS * prof.sigma[chain], tolerance_floor_m)
             g0, g1 = _consensus(prof, fit, centre, vlo, vhi, tol)
             usable = (g1 - g0 >= 3) & np.isfinite(fit.radius)
             g0, g1 = np.where(usable, g0, i0), np.where(usable, g1, i1)
