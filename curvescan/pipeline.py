@@ -314,7 +314,7 @@ def _covered_fids(texts: pd.Series) -> set:
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    text = pa.array(texts.astype(str).to_numpy(), pa.string())
+    text = pa.array(texts.astype(str), type=pa.string(), from_pandas=True)
     parts = pc.list_flatten(pc.split_pattern(text, ","))
     parts = pc.filter(parts, pc.not_equal(parts, ""))
     return set(np.unique(pc.cast(parts, pa.int64()).to_numpy()).tolist())
