@@ -315,8 +315,16 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
         m = scale == j
         csum = cumulative_turn(prof, int(j))
         turn[m] = csum[i_e[m]] - csum[i_s[m]]
+    # an arc of radius R cannot be longer than R times the curve's whole deflection: where
+    # sparse or noisy vertices let the fit reach into the tangents, shrink the circular
+    # part about its middle (the curve's ends stay)
+    longest = p["radius"] * np.abs(turn)
+    too_long = (circ_end - circ_start) > longest
+    centre = 0.5 * (circ_start + circ_end)
+    circ_start = np.where(too_long, np.maximum(centre - 0.5 * longest, start), circ_start)
+    circ_end = np.where(too_long, np.minimum(centre + 0.5 * longest, end), circ_end)
     circ_len = circ_end - circ_start
-    circ_defl = np.degrees(circ_len / radius[keep][order])
+    circ_defl = np.degrees(circ_len / p["radius"])
     rel_se = se / p["radius"]
     nvert = p["n"].astype(int)
     reliability = np.where(
