@@ -93,3 +93,31 @@ def test_radius_invariant_under_rigid_motion_and_scaling(angle, dx, dy, scale):
     assert moved == pytest.approx(base, rel=1e-6)
     scaled = fit_circles(x * scale, y * scale, g, 1).radius[0]
     assert scaled == pytest.approx(base * scale, rel=1e-6)
+
+
+def test_hyper_fit_solves_the_generalised_eigenproblem():
+    """The Newton root of the characteristic polynomial gives the same circle as solving
+    M A = eta N A directly with scipy.linalg.eig (hyper constraint matrix of
+    Al-Sharadqah & Chernov 2009, for centred data)."""
+    from scipy.linalg import eig
+
+    rng = np.random.default_rng(11)
+    for _ in range(25):
+        r = float(np.exp(rng.uniform(np.log(20), np.log(2000))))
+        n = int(rng.integers(4, 30))
+        t = np.sort(rng.uniform(0, np.radians(rng.uniform(5, 150)), n))
+        x = 300 + r * np.cos(t) + rng.normal(0, 0.3, n)
+        y = -200 + r * np.sin(t) + rng.normal(0, 0.3, n)
+        X, Y = x - x.mean(), y - y.mean()
+        Z = X * X + Y * Y
+        D = np.column_stack([Z, X, Y, np.ones(n)])
+        M = D.T @ D / n
+        mz = Z.mean()
+        N = np.array([[8 * mz, 0, 0, 2], [0, 1, 0, 0], [0, 0, 1, 0], [2, 0, 0, 0]])
+        vals, vecs = eig(M, N)
+        vals = np.real(vals)
+        k = np.argmin(np.where(vals > -1e-12 * np.abs(vals).max(), vals, np.inf))
+        A = np.real(vecs[:, k])
+        cx, cy = -A[1] / (2 * A[0]) + x.mean(), -A[2] / (2 * A[0]) + y.mean()
+        ours = hyper_fit(x, y, np.zeros(n, dtype=int), 1)
+        np.testing.assert_allclose([ours[0][0], ours[1][0]], [cx, cy], rtol=0, atol=1e-6 * r)

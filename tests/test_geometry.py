@@ -231,3 +231,23 @@ def test_direction_follows_the_feature_a_curve_lies_on():
     c = res.curves.sort_values("radius_m")
     assert list(c["direction"]) == ["left", "right"]
     assert list(c["src_fids"]) == ["0", "1"]
+
+
+def test_compiled_curvature_equals_numpy_form():
+    from curvescan.geometry._kernels import HAVE_NUMBA
+    from curvescan.geometry.resample import chord_curvature, resample
+
+    if not HAVE_NUMBA:
+        pytest.skip("numba not installed")
+    al = simple_curve(120.0, 70.0, spiral_m=30.0)
+    xy = _digitise(al, 7.0)
+    xy2 = _digitise(simple_curve(400.0, 30.0), 11.0) + [5000.0, 0.0]
+    coords = np.vstack([xy, xy2])
+    offsets = np.array([0, len(xy), len(coords)])
+    measure = np.concatenate([np.r_[0, np.cumsum(np.hypot(*np.diff(c, axis=0).T))]
+                              for c in (xy, xy2)])
+    st, s, chain, off = resample(coords, measure, offsets, 3.0)
+    half = np.array([6, 9])
+    a = chord_curvature(st, s, chain, off, half, use_compiled=True)
+    b = chord_curvature(st, s, chain, off, half, use_compiled=False)
+    np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-15)

@@ -7,7 +7,9 @@ curves are fitted without a Python loop per curve.
 * :func:`hyper_fit`: the algebraic "hyper" fit of Al-Sharadqah & Chernov, *Error
   analysis for circle fitting algorithms*, Electron. J. Statist. 3 (2009) 886-911: the
   generalised eigenproblem ``M A = eta N A`` with the hyper constraint matrix, which has
-  no essential bias.
+  no essential bias, solved through the smallest non-negative root of its characteristic
+  polynomial (Newton's method, as in Chernov's published implementation) so that no
+  per-group eigen-decomposition is needed.
 * :func:`geometric_fit`: orthogonal least squares (minimise the sum of squared distances
   to the circle) by damped Gauss-Newton from the algebraic start, with the parameter
   covariance ``sigma^2 (J^T J)^-1`` that gives the radius standard error.
@@ -68,44 +70,41 @@ def hyper_fit(x: np.ndarray, y: np.ndarray, group: np.ndarray, n_groups: int):
     X = x - mx[group]
     Y = y - my[group]
     Z = X * X + Y * Y
-    cols = (Z, X, Y)
-    M = np.zeros((n_groups, 4, 4))
-    for i in range(3):
-        for j in range(i, 3):
-            s = _sums(group, cols[i] * cols[j], n_groups)
-            M[:, i, j] = M[:, j, i] = s
-        s = _sums(group, cols[i], n_groups)
-        M[:, i, 3] = M[:, 3, i] = s
-    M[:, 3, 3] = n
     with np.errstate(invalid="ignore", divide="ignore"):
-        M /= n[:, None, None]
-    mz = M[:, 0, 3]
-    # hyper constraint matrix for centred data (mean x = mean y = 0)
-    Ninv = np.zeros((n_groups, 4, 4))
-    Ninv[:, 0, 3] = Ninv[:, 3, 0] = 0.5
-    Ninv[:, 1, 1] = Ninv[:, 2, 2] = 1.0
-    Ninv[:, 3, 3] = -2.0 * mz
-    ok = (n >= 3) & np.isfinite(M).all(axis=(1, 2))
-    cx = np.full(n_groups, np.nan)
-    cy = np.full(n_groups, np.nan)
-    r = np.full(n_groups, np.nan)
-    if not ok.any():
-        return cx, cy, r
-    vals, vecs = np.linalg.eig(Ninv[ok] @ M[ok])
-    vals = np.real(vals)
-    vecs = np.real(vecs)
-    scale = np.abs(vals).max(axis=1, keepdims=True) + 1e-300
-    cand = np.where(vals > -1e-12 * scale, vals, np.inf)
-    pick = np.argmin(cand, axis=1)
-    A = np.take_along_axis(vecs, pick[:, None, None], axis=2)[:, :, 0]
-    a, b, c, d = A.T
-    with np.errstate(invalid="ignore", divide="ignore"):
-        ccx = -b / (2 * a)
-        ccy = -c / (2 * a)
-        rr = np.sqrt(b * b + c * c - 4 * a * d) / (2 * np.abs(a))
-    cx[ok] = ccx + mx[ok]
-    cy[ok] = ccy + my[ok]
-    r[ok] = rr
+        def mean(v):
+            return _sums(group, v, n_groups) / n
+
+        Mxx, Myy, Mxy = mean(X * X), mean(Y * Y), mean(X * Y)
+        Mxz, Myz, Mzz = mean(X * Z), mean(Y * Z), mean(Z * Z)
+        Mz = Mxx + Myy
+        cov = Mxx * Myy - Mxy * Mxy
+        var_z = Mzz - Mz * Mz
+        # det(M - eta N) for the hyper constraint N: 4 eta^4 + A2 eta^2 + A1 eta + A0
+        A2 = 4.0 * cov - 3.0 * Mz * Mz - Mzz
+        A1 = var_z * Mz + 4.0 * cov * Mz - Mxz * Mxz - Myz * Myz
+        A0 = Mxz * (Mxz * Myy - Myz * Mxy) + Myz * (Myz * Mxx - Mxz * Mxy) - var_z * cov
+        # its smallest non-negative root, by Newton's method from zero
+        eta = np.zeros(n_groups)
+        val = A0.copy()
+        live = np.isfinite(A0) & (n >= 3)
+        for _ in range(40):
+            slope = A1 + eta * (2.0 * A2 + 16.0 * eta * eta)
+            step_to = eta - val / slope
+            new_val = A0 + step_to * (A1 + step_to * (A2 + 4.0 * step_to * step_to))
+            better = live & np.isfinite(step_to) & (np.abs(new_val) < np.abs(val))
+            eta = np.where(better, step_to, eta)
+            val = np.where(better, new_val, val)
+            live = better
+            if not live.any():
+                break
+        det = eta * eta - eta * Mz + cov
+        ccx = (Mxz * (Myy - eta) - Myz * Mxy) / det / 2.0
+        ccy = (Myz * (Mxx - eta) - Mxz * Mxy) / det / 2.0
+        rr = np.sqrt(ccx * ccx + ccy * ccy + Mz - 2.0 * eta)
+    ok = (n >= 3) & np.isfinite(rr)
+    cx = np.where(ok, ccx + mx, np.nan)
+    cy = np.where(ok, ccy + my, np.nan)
+    r = np.where(ok, rr, np.nan)
     return cx, cy, r
 
 

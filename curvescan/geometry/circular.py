@@ -18,7 +18,7 @@ Works on "pieces" (station ranges of one sign of curvature), all at once:
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -55,6 +55,7 @@ class Profile:
     v_off: np.ndarray  # chain vertex offsets
     sigma: np.ndarray  # per-chain vertex noise (m)
     half_m: np.ndarray  # curvature half window (m) per scale and chain: (n_scales, n_chains)
+    turn_cache: dict = field(default_factory=dict)  # running heading change per scale
 
     def k(self, scale: np.ndarray, idx: np.ndarray) -> np.ndarray:
         """Curvature at stations ``idx``, each at its own scale index."""
@@ -351,9 +352,13 @@ def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
 
 def cumulative_turn(prof: Profile, scale: int) -> np.ndarray:
     """Running heading change (rad) along stations at one curvature scale, chain by chain."""
+    if scale in prof.turn_cache:
+        return prof.turn_cache[scale]
     step = np.r_[np.diff(prof.s), 0.0]
     step[np.r_[prof.chain[1:] != prof.chain[:-1], True]] = 0.0
-    return np.concatenate([[0.0], np.cumsum(prof.K[scale] * step)])
+    out = np.concatenate([[0.0], np.cumsum(prof.K[scale] * step)])
+    prof.turn_cache[scale] = out
+    return out
 
 
 def _piece_integral(prof: Profile, pf: np.ndarray, pl: np.ndarray,

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ._kernels import HAVE_NUMBA, chord_kappa
 from .stations import Stations
 
 __all__ = ["global_measure", "interpolate", "resample", "chord_curvature", "station_heading"]
@@ -55,7 +56,8 @@ def resample(coords: np.ndarray, measure: np.ndarray, offsets: np.ndarray,
 
 
 def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np.ndarray,
-                    half_window: np.ndarray, at: np.ndarray | None = None) -> np.ndarray:
+                    half_window: np.ndarray, at: np.ndarray | None = None,
+                    use_compiled: bool = True) -> np.ndarray:
     """Curvature from the heading change between two chords of ``half_window`` stations.
 
     At station ``j`` the chords are ``j-k -> j`` and ``j -> j+k``; curvature is the angle
@@ -70,6 +72,9 @@ def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np
         Half window in stations, per chain.
     at : ndarray of int, optional
         Compute only at these station indices (default: all).
+    use_compiled : bool
+        Use the compiled kernel where numba is installed (the numpy form gives the same
+        values).
 
     Returns
     -------
@@ -77,6 +82,8 @@ def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np
         Signed curvature (1/m, + left) at ``at`` (or at every station).
     """
     idx = np.arange(len(s)) if at is None else np.asarray(at, dtype=np.int64)
+    if use_compiled and HAVE_NUMBA:
+        return chord_kappa(xy, s, chain, st_off, half_window, idx)
     ch = chain[idx]
     start = st_off[ch]
     last = st_off[ch + 1] - 1
