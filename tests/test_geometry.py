@@ -251,3 +251,20 @@ def test_compiled_curvature_equals_numpy_form():
     a = chord_curvature(st, s, chain, off, half, use_compiled=True)
     b = chord_curvature(st, s, chain, off, half, use_compiled=False)
     np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-15)
+
+
+def test_batches_of_chains_give_the_same_curves(monkeypatch):
+    """Chains are processed in batches to bound memory; the batching changes nothing."""
+    import curvescan.geometry as geometry
+
+    lines = [_digitise(simple_curve(80.0 + 40 * i, 50.0, spiral_m=20.0), 6.0) + [3000.0 * i, 0]
+             for i in range(6)]
+    whole = _curves(lines)
+    monkeypatch.setattr(geometry, "BATCH_STATIONS", 300)  # about one chain per batch
+    parts = _curves(lines)
+    assert len(whole.curves) == len(parts.curves) == 6
+    np.testing.assert_allclose(parts.curves["radius_m"], whole.curves["radius_m"], rtol=1e-12)
+    assert parts.curves["curve_id"].is_unique
+    assert list(parts.segments["curve_id"]) == list(whole.segments["curve_id"])
+    assert len(parts.stations) == len(whole.stations)
+    np.testing.assert_array_equal(parts.stations.offsets, whole.stations.offsets)

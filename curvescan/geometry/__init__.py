@@ -87,7 +87,7 @@ def _chain_half_windows(chains: Any, spacing: float, smoothing: float) -> np.nda
     return np.maximum(np.round(half / spacing).astype(np.int64), 1)
 
 
-def find_curves(chains: Any, config: Any) -> GeometryResult:
+def find_curves(chains: Any, config: Any, *, keep_stations: bool = True) -> GeometryResult:
     """Find curves on every chain and fit their circular parts.
 
     Parameters
@@ -97,6 +97,9 @@ def find_curves(chains: Any, config: Any) -> GeometryResult:
         Uses the geometry parameters (``station_spacing_m``, ``smoothing_length_m``,
         ``max_radius_m``, ``min_deflection_deg``, ``min_curve_length_m``,
         ``circle_tolerance_m``, ``min_significance``).
+    keep_stations : bool
+        Return the stations (the terrain stage needs them with a DEM); without, memory
+        stays bounded by one batch of chains.
 
     Returns
     -------
@@ -104,6 +107,60 @@ def find_curves(chains: Any, config: Any) -> GeometryResult:
         ``curves`` has one row per curve (see docs/output.md); ``segments`` one row per
         tangent, transition or circular piece of every chain.
     """
+    spacing = config.station_spacing_m
+    est = np.ceil(chains.lengths / spacing).astype(np.int64) + 2
+    batch = (np.cumsum(est) - est) // BATCH_STATIONS
+    firsts = np.flatnonzero(np.r_[True, batch[1:] != batch[:-1]])
+    bounds = np.r_[firsts, chains.n_chains]
+    curves, segments, stations = [], [], []
+    n_curves = n_stations = 0
+    for c0, c1 in zip(bounds[:-1], bounds[1:]):
+        part = _batch(_subset(chains, int(c0), int(c1)), config)
+        cur, seg = part.curves, part.segments
+        cur["chain_id"] += c0
+        seg["chain_id"] += c0
+        cur["curve_id"] += n_curves
+        seg["curve_id"] = np.where(seg["curve_id"] > 0, seg["curve_id"] + n_curves, 0)
+        n_curves += len(cur)
+        curves.append(cur)
+        segments.append(seg)
+        if keep_stations:
+            st = part.stations
+            st.chain = st.chain + c0
+            st.offsets = st.offsets + n_stations
+            n_stations += len(st)
+            stations.append(st)
+    return GeometryResult(
+        stations=_concat_stations(stations) if keep_stations else None,
+        curves=pd.concat(curves, ignore_index=True),
+        segments=pd.concat(segments, ignore_index=True))
+
+
+#: Chains are processed in batches of about this many stations, so memory stays bounded
+#: on a region of any size (results do not depend on the batching).
+BATCH_STATIONS = 2_000_000
+
+
+def _subset(chains: Any, c0: int, c1: int) -> Any:
+    """The chains ``c0 .. c1-1`` as a :class:`curvescan.prepare.Chains` of their own."""
+    v0, v1 = int(chains.offsets[c0]), int(chains.offsets[c1])
+    rev = chains.vertex_reversed
+    return type(chains)(
+        coords=chains.coords[v0:v1], offsets=chains.offsets[c0:c1 + 1] - v0,
+        vertex_row=chains.vertex_row[v0:v1], measure=chains.measure[v0:v1], crs=chains.crs,
+        rows=chains.rows[c0:c1], closed=chains.closed[c0:c1],
+        vertex_reversed=None if rev is None else rev[v0:v1])
+
+
+def _concat_stations(parts: list) -> Stations:
+    offsets = np.concatenate([parts[0].offsets[:1]] + [p.offsets[1:] for p in parts])
+    return Stations(*(np.concatenate([getattr(p, k) for p in parts])
+                      for k in ("x", "y", "s", "heading", "curvature", "chain")),
+                    offsets=offsets)
+
+
+def _batch(chains: Any, config: Any) -> GeometryResult:
+    """Curves of one batch of chains (the whole method; see :func:`find_curves`)."""
     spacing = config.station_spacing_m
     xy, s, chain, st_off = resample(chains.coords, chains.measure, chains.offsets, spacing)
     half_fine = _chain_half_windows(chains, spacing, config.smoothing_length_m)
