@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["expand", "group_quantile", "group_argmax", "find", "TIE_M"]
+__all__ = ["expand", "group_quantile", "group_argmax", "find", "stops_around", "TIE_M"]
 
 #: Measures closer than this (m) count as equal: positions recomputed from different
 #: global offsets (another chain order, another partition) differ in the last bits.
@@ -60,3 +60,20 @@ def find(sorted_values: np.ndarray, value, side: str = "left") -> np.ndarray:
     """
     shift = -TIE_M if side == "left" else TIE_M
     return np.searchsorted(sorted_values, np.asarray(value) + shift, side=side)
+
+
+def stops_around(idx: np.ndarray, grp: np.ndarray, centre: np.ndarray, stop: np.ndarray,
+                 n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Nearest flagged index on each side of each group's ``centre``.
+
+    Returns ``(left, right)``: the largest ``idx`` below the centre where ``stop`` holds
+    (-1 if none) and the smallest above it (``int64`` max if none).
+    """
+    big = np.iinfo(np.int64).max
+    right = np.full(n, big)
+    sel = stop & (idx > centre[grp])
+    np.minimum.at(right, grp[sel], idx[sel])
+    left = np.full(n, -1)
+    sel = stop & (idx < centre[grp])
+    np.maximum.at(left, grp[sel], idx[sel])
+    return left, right

@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._ragged import expand, find, group_argmax, group_quantile
+from ._ragged import expand, find, group_argmax, group_quantile, stops_around
 from .circlefit import CircleFit, fit_circles
 
 __all__ = ["Profile", "circular_parts"]
@@ -136,13 +136,8 @@ def half_level_span(prof: Profile, a: np.ndarray, b: np.ndarray, centre_m: np.nd
     centre = np.clip(find(prof.gs, centre_m, side="left"), a, b)
     idx, grp = expand(a, b - a + 1)
     low = prof.k(scale[grp], idx) * sign[grp] < 0.5 / radius[grp]
+    left, right = stops_around(idx, grp, centre, low, n)
     big = np.iinfo(np.int64).max
-    right = np.full(n, big)
-    sel = low & (idx > centre[grp])
-    np.minimum.at(right, grp[sel], idx[sel])
-    left = np.full(n, -1)
-    sel = low & (idx < centre[grp])
-    np.maximum.at(left, grp[sel], idx[sel])
     last = len(prof.gs) - 1
     hi = np.where(right == big, prof.gs[b], prof.gs[np.minimum(right, last)])
     lo = np.where(left < 0, prof.gs[a], prof.gs[np.maximum(left, 0)])
@@ -175,19 +170,11 @@ def _consensus(prof: Profile, fit: CircleFit, centre: np.ndarray, vlo, vhi, tol)
     same_prev = np.r_[False, grp[1:] == grp[:-1]]
     nxt_bad = np.r_[bad[1:], True] | ~same_next
     prv_bad = np.r_[True, bad[:-1]] | ~same_prev
-    stop_right = bad & nxt_bad
-    stop_left = bad & prv_bad
-    big = np.iinfo(np.int64).max
-    right = np.full(n, big)
-    sel = stop_right & (idx > centre[grp])
-    np.minimum.at(right, grp[sel], idx[sel])
-    left = np.full(n, -1)
-    sel = stop_left & (idx < centre[grp])
-    np.maximum.at(left, grp[sel], idx[sel])
-    i1 = np.where(right == big, vhi, right)
+    left, _ = stops_around(idx, grp, centre, bad & prv_bad, n)
+    _, right = stops_around(idx, grp, centre, bad & nxt_bad, n)
+    i1 = np.where(right == np.iinfo(np.int64).max, vhi, right)
     i0 = np.where(left < 0, vlo, left + 1)
     # a single bad vertex at either end of the run is not part of it
-    end_bad = np.zeros(n, dtype=bool)
     pos_last = np.clip(i1 - 1 - vlo, 0, None)
     pos_first = np.clip(i0 - vlo, 0, None)
     starts = np.cumsum(vhi - vlo) - (vhi - vlo)
@@ -198,7 +185,6 @@ def _consensus(prof: Profile, fit: CircleFit, centre: np.ndarray, vlo, vhi, tol)
     first_bad[valid] = bad[(starts + pos_first)[valid]]
     i1 = np.where(last_bad & (i1 - 1 > centre), i1 - 1, i1)
     i0 = np.where(first_bad & (i0 < centre), i0 + 1, i0)
-    del end_bad
     return i0, i1
 
 
