@@ -74,7 +74,7 @@ def wants_partitions(source: Any, config: Any) -> bool:
 class _Survey:
     n_rows: int
     local_fid: bool             # src_fid counted from 0 in this partition (no stored ids)
-    end_xy: np.ndarray          # (2 k, 2) part ends
+    end_xy: np.ndarray          # (2 k, 4) part ends and directions into the parts
     part_row: np.ndarray        # (k,) local row of each part
     ordinal: np.ndarray         # (k,) index of the part among its row's kept parts
     group: np.ndarray | None    # (k,) join-field value of each part
@@ -138,7 +138,7 @@ def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Surve
                            None, [], [])
         _check_fields(frame, config)
         parts, part_row, ordinal, skipped = _cleaned(frame, config, crs)
-        _, _, end_xy = part_ends(parts) if len(part_row) else (None, None, np.zeros((0, 2)))
+        _, _, end_xy = part_ends(parts) if len(part_row) else (None, None, np.zeros((0, 4)))
         group = None
         if config.join_field is not None:
             group = frame[config.join_field].to_numpy(dtype=object)[part_row]

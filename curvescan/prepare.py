@@ -52,6 +52,10 @@ PARAMETERS: tuple[Param, ...] = (
           advanced=True),
 )
 
+#: Two parts that leave their common end within this angle of each other double back: they
+#: are not joined into one chain (a duplicated or overlapping feature).
+UTURN_DEG = 30.0
+
 #: Largest point scale error tolerated in a projected input CRS before re-projecting.
 _MAX_SCALE_ERROR = 0.002
 
@@ -301,17 +305,23 @@ def _remove_spikes(xy: np.ndarray, vidx: np.ndarray, limit_rad: float, passes: i
 
 
 def part_ends(parts: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """First and last vertex index of each cleaned part, and the ends as ``(2n, 2)`` xy.
+    """First and last vertex index of each cleaned part, and its ends as ``(2n, 4)``.
 
-    Row ``2 p`` of the end array is the start of part ``p``, row ``2 p + 1`` its end.
+    Row ``2 p`` of the end array is the start of part ``p``, row ``2 p + 1`` its end; the
+    columns are the end's x and y and the unit direction from the end into the part.
     """
     xy, pid = parts
     n = int(pid[-1]) + 1 if len(pid) else 0
     starts = np.searchsorted(pid, np.arange(n))
     ends = np.append(starts[1:], len(pid)) - 1
-    end_xy = np.empty((2 * n, 2))
-    end_xy[0::2] = xy[starts]
-    end_xy[1::2] = xy[ends]
+    end_xy = np.empty((2 * n, 4))
+    end_xy[0::2, :2] = xy[starts]
+    end_xy[1::2, :2] = xy[ends]
+    inward = np.empty((2 * n, 2))
+    inward[0::2] = xy[np.minimum(starts + 1, ends)] - xy[starts]
+    inward[1::2] = xy[np.maximum(ends - 1, starts)] - xy[ends]
+    norm = np.hypot(inward[:, 0], inward[:, 1])
+    end_xy[:, 2:] = inward / np.where(norm > 0, norm, 1.0)[:, None]
     return starts, ends, end_xy
 
 
@@ -329,8 +339,11 @@ def chain_order(end_xy: np.ndarray, group: np.ndarray | None,
 
     Parameters
     ----------
-    end_xy : ndarray (2 n, 2)
-        Start and end of every part (see :func:`part_ends`).
+    end_xy : ndarray (2 n, 4) or (2 n, 2)
+        Start and end of every part, with the direction into the part (see
+        :func:`part_ends`). With directions, two parts that leave a node in nearly the same
+        direction are not joined: that is a road doubling back on itself (a duplicated
+        feature), not a continuation.
     group : ndarray (n,) or None
         Parts join only where their group values are equal.
     tolerance : float
@@ -342,7 +355,7 @@ def chain_order(end_xy: np.ndarray, group: np.ndarray | None,
         One entry per part in chain order: the part, whether it runs backwards, its chain.
     """
     n = len(end_xy) // 2
-    node = _cluster(end_xy, tolerance)
+    node = _cluster(end_xy[:, :2], tolerance)
     degree = np.bincount(node, minlength=node.max() + 1)
     mate = np.full(2 * n, -1, dtype=np.int64)
     deg2 = degree[node] == 2
@@ -350,6 +363,9 @@ def chain_order(end_xy: np.ndarray, group: np.ndarray | None,
     order = cand[np.argsort(node[cand], kind="stable")]
     a, b = order[0::2], order[1::2]
     ok = (a >> 1) != (b >> 1)  # a part never joins itself (closed ring)
+    if end_xy.shape[1] >= 4:
+        same_way = np.einsum("ij,ij->i", end_xy[a, 2:], end_xy[b, 2:])
+        ok &= same_way < np.cos(np.radians(UTURN_DEG))
     if group is not None:
         ga, gb = group[a >> 1], group[b >> 1]
         ok &= pd.notna(ga) & (ga == gb)

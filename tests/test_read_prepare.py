@@ -152,3 +152,15 @@ def test_z_dropped_multipart_exploded_spike_removed():
     assert chains.n_chains == 4
     lengths = sorted(np.round(chains.lengths, 1))
     assert lengths[-1] == pytest.approx(200.0, abs=0.2)  # spike vertex (100,100) removed
+
+
+def test_duplicated_feature_is_not_joined_back_onto_itself():
+    """Two copies of one road (or a copy digitised backwards) meet at both ends; joining
+    them would make the chain double back on itself."""
+    al = simple_curve()
+    s = np.append(np.arange(0, al.length_m, 10.0), al.length_m)
+    xy = al.points(s)
+    for copy in (xy.copy(), xy[::-1].copy()):
+        chains = _chains(frame_from_lines([xy, copy]))
+        assert chains.n_chains == 2
+        assert not chains.closed.any()
