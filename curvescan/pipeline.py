@@ -172,8 +172,9 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     speed_report, terrain_record : dict
         The posted-speed parsing report and the terrain stage's run record.
     """
-    geo = _timed(timings, "geometry", lambda: find_curves(chains, config,
-                                                                keep_stations=dem is not None))
+    geo = _timed(timings, "geometry", lambda: find_curves(
+        chains, config, keep_stations=dem is not None,
+        progress=lambda done: report("geometry", 0.25 + 0.25 * done)))
     report("geometry", 0.5)
     curves = geo.curves
     _to_ground(curves, chains)

@@ -268,3 +268,25 @@ def test_batches_of_chains_give_the_same_curves(monkeypatch):
     assert list(parts.segments["curve_id"]) == list(whole.segments["curve_id"])
     assert len(parts.stations) == len(whole.stations)
     np.testing.assert_array_equal(parts.stations.offsets, whole.stations.offsets)
+
+
+def test_progress_is_reported_per_batch_and_can_cancel(monkeypatch):
+    import curvescan.geometry as geometry
+
+    class Stop(Exception):
+        pass
+
+    lines = [_digitise(simple_curve(100.0, 40.0), 6.0) + [3000.0 * i, 0] for i in range(4)]
+    monkeypatch.setattr(geometry, "BATCH_STATIONS", 300)
+    seen = []
+    frame = frame_from_lines(lines)
+    cfg = make_config(crs=CRS)
+    chains = prepare(load(frame, cfg), cfg)
+    find_curves(chains, cfg, progress=seen.append)
+    assert seen == sorted(seen) and seen[-1] == 1.0 and len(seen) >= 2
+
+    def cancel(done):
+        raise Stop
+
+    with pytest.raises(Stop):
+        find_curves(chains, cfg, progress=cancel)

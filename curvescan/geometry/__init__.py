@@ -87,7 +87,8 @@ def _chain_half_windows(chains: Any, spacing: float, smoothing: float) -> np.nda
     return np.maximum(np.round(half / spacing).astype(np.int64), 1)
 
 
-def find_curves(chains: Any, config: Any, *, keep_stations: bool = True) -> GeometryResult:
+def find_curves(chains: Any, config: Any, *, keep_stations: bool = True,
+                progress: Any = None) -> GeometryResult:
     """Find curves on every chain and fit their circular parts.
 
     Parameters
@@ -100,6 +101,8 @@ def find_curves(chains: Any, config: Any, *, keep_stations: bool = True) -> Geom
     keep_stations : bool
         Return the stations (the terrain stage needs them with a DEM); without, memory
         stays bounded by one batch of chains.
+    progress : callable, optional
+        Called with the fraction of chains done after each batch (it may raise to cancel).
 
     Returns
     -------
@@ -130,6 +133,8 @@ def find_curves(chains: Any, config: Any, *, keep_stations: bool = True) -> Geom
             st.offsets = st.offsets + n_stations
             n_stations += len(st)
             stations.append(st)
+        if progress is not None:
+            progress(float(c1) / max(chains.n_chains, 1))
     return GeometryResult(
         stations=_concat_stations(stations) if keep_stations else None,
         curves=pd.concat(curves, ignore_index=True),
