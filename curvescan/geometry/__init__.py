@@ -380,7 +380,9 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     # an arc of radius R cannot be longer than R times the curve's whole deflection: where
     # sparse or noisy vertices let the fit reach into the tangents, shrink the circular
     # part about its middle (the curve's ends stay)
-    longest = p["radius"] * np.abs(turn)
+    # transitions turn half as much per metre as the arc: they take L/(2R) of the deflection
+    trans = np.maximum(circ_start - start, 0.0) + np.maximum(end - circ_end, 0.0)
+    longest = np.maximum(p["radius"] * np.abs(turn) - 0.5 * trans, 0.2 * p["radius"] * np.abs(turn))
     too_long = (circ_end - circ_start) > longest
     centre = 0.5 * (circ_start + circ_end)
     circ_start = np.where(too_long, np.maximum(centre - 0.5 * longest, start), circ_start)
