@@ -75,14 +75,10 @@ def piece_table(chains: Any, curves: pd.DataFrame) -> pd.DataFrame:
     order = np.lexsort((gap_start, gap_chain))
     gap_chain, gap_start = gap_chain[order], gap_start[order]
     nxt_same = np.r_[gap_chain[1:] == gap_chain[:-1], False]
-    next_start = np.concatenate([cs["s_start_m"].to_numpy(), [np.nan]])
-    # the curve following each gap start: curves sorted, so index by running count
-    curve_pos = np.cumsum(np.r_[False, nxt_same[:-1]] if len(nxt_same) else [])
     gap_end = np.where(nxt_same, np.nan, lengths[gap_chain])
     k = np.flatnonzero(nxt_same)
-    # gap k ends where the curve that starts the next gap entry begins
-    gap_end[k] = _curve_starts_after(cs, gap_chain[k], gap_start[k])
-    del curve_pos, next_start
+    # a gap that another gap follows on its chain ends where the next curve begins
+    gap_end[k] = _curve_starts_after(cs, gap_chain[k], gap_start[k], lengths)
     parts.append(pd.DataFrame({"chain_id": gap_chain, "kind": "tangent", "s_start_m": gap_start,
                                "s_end_m": gap_end, "curve_id": 0, "radius_m": np.nan}))
     table = pd.concat(parts, ignore_index=True)
@@ -92,15 +88,14 @@ def piece_table(chains: Any, curves: pd.DataFrame) -> pd.DataFrame:
     return table
 
 
-def _curve_starts_after(cs: pd.DataFrame, chain: np.ndarray, s: np.ndarray) -> np.ndarray:
-    """Start of the first curve on ``chain`` starting at or after ``s``."""
-    key_c = cs["chain_id"].to_numpy().astype(float)
-    key_s = cs["s_start_m"].to_numpy()
-    big = 1e12
-    keys = key_c * big + key_s
-    q = chain.astype(float) * big + s - 1e-6
-    j = np.searchsorted(keys, q, side="left")
-    return key_s[np.minimum(j, len(key_s) - 1)]
+def _curve_starts_after(cs: pd.DataFrame, chain: np.ndarray, s: np.ndarray,
+                        lengths: np.ndarray) -> np.ndarray:
+    """Start of the first curve on ``chain`` starting at or after ``s`` (``cs`` sorted by
+    chain and start)."""
+    base = np.concatenate([[0.0], np.cumsum(lengths + 1.0)[:-1]])  # chains 1 m apart
+    keys = cs["s_start_m"].to_numpy() + base[cs["chain_id"].to_numpy()]
+    j = find(keys, s + base[chain], side="left")
+    return cs["s_start_m"].to_numpy()[np.minimum(j, len(keys) - 1)]
 
 
 def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray) -> np.ndarray:
