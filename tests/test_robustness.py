@@ -1,0 +1,56 @@
+"""Messy random networks: no crash, and every input row is in segments or skipped."""
+
+from __future__ import annotations
+
+import warnings
+
+import geopandas as gpd
+import numpy as np
+import pytest
+import shapely
+
+import curvescan
+
+
+def _messy_network(rng: np.random.Generator) -> gpd.GeoDataFrame:
+    geoms = []
+    for _ in range(int(rng.integers(5, 50))):
+        n = int(rng.integers(2, 40))
+        kind = int(rng.integers(0, 6))
+        if kind == 0:  # random scatter at any scale, from millimetres to kilometres
+            xy = rng.normal(0, rng.choice([0.001, 0.1, 10, 1000]), (n, 2))
+        elif kind == 1:  # random walk
+            xy = np.cumsum(rng.normal(0, 5, (n, 2)), axis=0)
+        elif kind == 2:  # all vertices (nearly) on one point
+            xy = np.repeat(rng.normal(0, 100, (1, 2)), n, axis=0) + rng.normal(0, 1e-9, (n, 2))
+        elif kind == 3:  # arcs, up to more than a full turn
+            t = np.linspace(0, rng.uniform(0.1, 7), n)
+            r = rng.uniform(5, 3000)
+            xy = np.c_[r * np.cos(t), r * np.sin(t)]
+        elif kind == 4:  # zigzag
+            xy = np.c_[np.arange(n) * rng.uniform(0.01, 50), np.zeros(n)]
+            xy[::2, 1] += rng.uniform(0, 3)
+        else:  # a single point repeated
+            xy = np.zeros((n, 2))
+        geoms.append(shapely.LineString(xy + [5e5 + rng.uniform(-1e4, 1e4), 5e6]))
+    speeds = rng.choice(["50", "x", None, "30 mph", "999"], len(geoms))
+    return gpd.GeoDataFrame({"maxspeed": speeds}, geometry=geoms, crs="EPSG:32632")
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_messy_network_loses_no_row(seed):
+    frame = _messy_network(np.random.default_rng(seed))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            result = curvescan.scan(frame, speed_field="maxspeed")
+        except curvescan.InputError as exc:  # e.g. nothing usable at all: one clear line
+            assert "\n" not in str(exc)
+            return
+    covered = set()
+    for text in result.segments["src_fids"]:
+        covered.update(int(t) for t in text.split(",") if t)
+    skipped = {s["src_fid"] for s in result.run["skipped"]}
+    assert covered | skipped == set(range(len(frame)))
+    assert not covered & skipped
+    assert np.isfinite(result.curves["radius_m"]).all()
