@@ -12,7 +12,7 @@ import pytest
 from curvescan.assess import hazards, rerank
 from curvescan.assess_consistency import classify_drop, consistency
 from curvescan.config import make_config
-from tests.assess_common import scan_demo
+from tests.conftest import scan_demo
 
 CONDS = ("dry", "wet", "snow", "ice")
 

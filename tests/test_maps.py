@@ -12,7 +12,7 @@ import pytest
 
 from curvescan.cli.main import main
 from curvescan.maps import overview_map, profile_plot, profile_table
-from tests.assess_common import scan_demo
+from tests.conftest import scan_demo
 
 matplotlib.use("Agg")
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"

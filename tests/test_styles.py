@@ -13,7 +13,7 @@ import pyogrio
 import pytest
 
 from curvescan.styles import CONDITION_STYLE, NONE_STYLE, WINTER_CLASSES, write_styles
-from tests.assess_common import scan_demo
+from tests.conftest import scan_demo
 
 SLD_NS = {"se": "http://www.opengis.net/se", "ogc": "http://www.opengis.net/ogc",
           "sld": "http://www.opengis.net/sld"}

@@ -13,7 +13,7 @@ from curvescan.assess_winter import parse_aadt, parse_bridge, winter_priority
 from curvescan.config import make_config
 from curvescan.errors import DataQualityWarning
 from tests.conftest import frame_from_lines, simple_curve
-from tests.assess_common import scan_demo
+from tests.conftest import scan_demo
 
 PARTS = ("snow", "ice", "bridge", "downgrade", "surprise")
 
