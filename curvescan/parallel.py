@@ -227,6 +227,16 @@ def _client(config: Any):
     if config.scheduler:
         return Client(config.scheduler, timeout="30s"), None
     processes = config.workers > 1
+    import logging
+
+    import dask
+
+    if not logging.getLogger("curvescan").isEnabledFor(logging.INFO):
+        # keep a local cluster's start-up and shut-down chatter (and the heartbeat errors
+        # of workers closing) off the user's terminal unless they asked for -v
+        dask.config.set({"distributed.logging.distributed": "critical",
+                         "distributed.admin.log-format": "%(message)s"})
+        logging.getLogger("distributed").setLevel(logging.CRITICAL)
     cluster = LocalCluster(n_workers=config.workers, threads_per_worker=1,
                            processes=processes, dashboard_address=None,
                            silence_logs=40)

@@ -55,8 +55,11 @@ def _show_versions(ctx: click.Context, _param: Any, value: bool) -> None:
 def main(ctx: click.Context, verbose: int, quiet: int) -> None:
     """Find horizontal curves in road layers and screen them for safe speeds."""
     level = logging.WARNING - 10 * (verbose - quiet)
-    logging.basicConfig(level=max(level, logging.DEBUG), format="%(levelname)s: %(message)s",
-                        stream=sys.stderr)
+    level = max(level, logging.DEBUG)
+    logging.basicConfig(level=level, format="%(levelname)s: %(message)s", stream=sys.stderr)
+    # libraries (dask) set their own loggers to INFO; filter at the handler too
+    for handler in logging.getLogger().handlers:
+        handler.setLevel(level)
     ctx.obj = {"verbose": verbose, "quiet": quiet}
 
 
