@@ -161,6 +161,8 @@ def test_closed_ring_roundabout_does_not_crash():
     geo = _curves([ring])
     assert len(geo.curves) >= 1
     assert geo.curves["radius_m"].iloc[0] == pytest.approx(20.0, rel=0.01)
+    assert geo.curves["on_ring"].all()
+    assert not _curves([_digitise(simple_curve(), 10.0)]).curves["on_ring"].any()
 
 
 def test_zero_length_line_is_skipped_and_recorded():

@@ -412,6 +412,7 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
         "fit_vertices": nvert,
         "reliability": reliability,
         "noise_m": prof.sigma[chain],
+        "on_ring": chains.closed[chain].astype(bool),
         "center_x": p["cx"],
         "center_y": p["cy"],
     })
