@@ -13,6 +13,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from .geometry._ragged import expand
 from .geometry.resample import global_measure
 
 __all__ = ["rows_on", "src_fid_text", "reduce_rows", "reversed_at", "orient_to_features"]
@@ -31,9 +32,7 @@ def rows_on(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray):
     j = np.clip(j, chains.offsets[chain], chains.offsets[chain + 1] - 2)
     # a segment's row is the row of its second vertex (its first may be a joint)
     mid_row = chains.vertex_row[j + 1]
-    counts = np.maximum(i1 - i0, 0)
-    grp = np.repeat(np.arange(len(chain)), counts)
-    idx = i0[grp] + (np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts))
+    idx, grp = expand(i0, i1 - i0)
     # a vertex shared by two parts is stored once, with the row of the earlier part;
     # the row after it starts at the next vertex, which the range also covers
     groups = np.concatenate([grp, np.arange(len(chain))]).astype(np.int64)

@@ -11,6 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .geometry._ragged import expand
 from .geometry.stations import Stations
 
 __all__ = [
@@ -73,9 +74,8 @@ def _interp_pose(st: Stations, ix: ChainIndex, q: np.ndarray) -> tuple[np.ndarra
 def _ragged(counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Parent id and position within parent for ``counts`` children per parent."""
     counts = np.asarray(counts, dtype=np.int64)
-    parent = np.repeat(np.arange(counts.size), counts)
-    start = np.cumsum(counts) - counts
-    return parent, np.arange(parent.size) - start[parent]
+    position, parent = expand(np.zeros(counts.size, dtype=np.int64), counts)
+    return parent, position
 
 
 @dataclass

@@ -319,7 +319,7 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     piece = p["piece"].astype(np.int64)
     gbase = base[chain]
     scale = p["scale"].astype(np.int64)
-    sign = np.sign(_piece_sign(prof, first[piece], last[piece]))
+    sign = p["sign"]
     # the circular part lies where the fitted vertices are and the curvature is above
     # half the circle's: with sparse vertices the fit reaches into the tangents
     half_lo, half_hi = _half_level_extent(prof, p, sign, scale, gbase)
@@ -434,8 +434,3 @@ def _half_level_extent(prof, p, sign, scale, gbase):
     lo, hi = half_level_span(prof, a, np.maximum(a, b), 0.5 * (p["lo"] + p["hi"]),
                              p["radius"], sign, scale)
     return lo - gbase, hi - gbase
-
-
-def _piece_sign(prof, pf, pl):
-    csum = np.concatenate([[0.0], np.cumsum(prof.K[0])])
-    return csum[pl + 1] - csum[pf]

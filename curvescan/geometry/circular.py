@@ -201,9 +201,10 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
     scale at which the piece's curvature is read (see :meth:`Profile.choose_scale`).
 
     Returns a dict of arrays, one entry per circular part: ``piece`` (index of the
-    original piece), ``chain``, ``scale``, ``lo``/``hi`` (global measure of the first/last
-    vertex of the part), ``i0``/``i1`` (vertex range), ``round`` and the fit (``cx``,
-    ``cy``, ``radius``, ``radius_se``, ``radius_sd_unit``, ``rmse``, ``n``).
+    original piece), ``chain``, ``scale``, ``sign`` (+1 left, -1 right), ``lo``/``hi``
+    (global measure of the first/last vertex of the part), ``i0``/``i1`` (vertex range),
+    ``round`` and the fit (``cx``, ``cy``, ``radius``, ``radius_se``, ``radius_sd_unit``,
+    ``rmse``, ``n``).
     """
     out: list[dict[str, np.ndarray]] = []
     origin = np.arange(len(pf))
@@ -259,6 +260,7 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
             cover = (hi - lo) >= PIECE_COVER * (span_hi - span_lo)
             accept &= cover & _is_plateau(prof, lo, hi, sign, scale, fit.radius)
         out.append({"piece": origin[accept], "chain": chain[accept], "scale": scale[accept],
+                    "sign": sign[accept],
                     "lo": lo[accept], "hi": hi[accept], "i0": i0[accept], "i1": i1[accept],
                     "round": np.full(accept.sum(), rnd),
                     **{k: getattr(fit, k)[accept] for k in fields}})
@@ -284,8 +286,8 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         pf, pl, origin = new_pf[worth], new_pl[worth], new_origin[worth]
         sign, scale = new_sign[worth], new_scale[worth]
     if not out:
-        return {k: np.zeros(0) for k in ("piece", "chain", "scale", "lo", "hi", "i0", "i1",
-                                           "round") + fields}
+        return {k: np.zeros(0) for k in ("piece", "chain", "scale", "sign", "lo", "hi", "i0",
+                                           "i1", "round") + fields}
     parts = {k: np.concatenate([o[k] for o in out]) for k in out[0]}
     return merge_fragments(prof, parts, tolerance_floor_m)
 

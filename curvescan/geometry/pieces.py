@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
-from ._ragged import find
+from ._ragged import expand, find
 from .resample import global_measure, interpolate
 
 __all__ = ["resolve_overlaps", "piece_table", "substrings"]
@@ -110,8 +110,7 @@ def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray) -
     i1 = find(gm, g1, side="left")
     inner = np.maximum(i1 - i0, 0)
     count = inner + 2
-    grp = np.repeat(np.arange(len(chain)), count)
-    pos = np.arange(count.sum()) - np.repeat(np.cumsum(count) - count, count)
+    pos, grp = expand(np.zeros(len(chain), dtype=np.int64), count)
     xy = np.empty((count.sum(), 2))
     is_first = pos == 0
     is_last = pos == count[grp] - 1
