@@ -92,6 +92,57 @@ def test_compound_curve_gives_two_circular_parts():
     assert (seg["kind"] == "curve").sum() == 2
 
 
+def test_noisy_compound_curve_is_split_into_its_two_arcs():
+    """0.5 m noise lets one circle grow over both arcs of a compound curve; the two-circle
+    test must split it, most of the time, into radii near the true ones."""
+    els = [Element("tangent", 300.0, 0, 0), Element("arc", 160.0, 1 / 150.0, 1 / 150.0, 1),
+           Element("arc", 240.0, 1 / 400.0, 1 / 400.0, 2), Element("tangent", 300.0, 0, 0)]
+    al = build(els)
+    good = 0
+    for k in range(10):
+        xy, _ = vertices(al, np.random.default_rng(100 + k), spacing_m=8.0, noise_m=0.5)
+        c = _curves([xy]).curves
+        if len(c) == 2:
+            r = np.sort(c["radius_m"].to_numpy())
+            se = c["radius_se_m"].to_numpy()[np.argsort(c["radius_m"].to_numpy())]
+            good += bool(np.all(np.abs(r - [150.0, 400.0]) <= 2.5 * se))
+    assert good >= 7
+
+
+def test_split_compound_keeps_a_single_noisy_circle_whole():
+    """The split step on its own: a single noisy arc stays one part; two arcs of radius
+    100 and 200 m become two, meeting at the vertex where the radius changes."""
+    from curvescan.geometry.circlefit import fit_circles
+    from curvescan.geometry.compound import split_compound
+
+    rng = np.random.default_rng(4)
+    t = np.linspace(0.0, 1.2, 40)
+    one = np.column_stack([300 * np.cos(t), 300 * np.sin(t)]) + rng.normal(0, 0.3, (40, 2))
+    t1 = np.linspace(0.0, 0.8, 30)
+    a = np.column_stack([100 * np.cos(t1), 100 * np.sin(t1)])
+    # second arc tangent to the first at its end, radius 200 (same centre line)
+    end = a[-1]
+    centre = end - 200.0 * end / 100.0
+    t2 = np.linspace(0.8, 1.2, 21)[1:]
+    b = centre + np.column_stack([200 * np.cos(t2), 200 * np.sin(t2)])
+    two = np.vstack([a, b]) + rng.normal(0, 0.3, (50, 2))
+    coords = np.vstack([one, two])
+    gm = np.arange(len(coords), dtype=float)
+    grp = np.r_[np.zeros(40, int), np.ones(50, int)]
+    fit = fit_circles(coords[:, 0], coords[:, 1], grp, 2)
+    parts = {"piece": np.array([0, 1]), "chain": np.array([0, 0]), "scale": np.array([0, 0]),
+             "sign": np.array([1.0, 1.0]), "lo": gm[[0, 40]], "hi": gm[[39, 89]],
+             "i0": np.array([0, 40]), "i1": np.array([40, 90]), "round": np.array([0, 0]),
+             "cx": fit.cx, "cy": fit.cy, "radius": fit.radius, "radius_se": fit.radius_se,
+             "radius_sd_unit": fit.radius_sd_unit, "rmse": fit.rmse, "n": fit.n}
+    out = split_compound(coords, gm, np.array([0.3]), parts)
+    assert (out["piece"] == 0).sum() == 1
+    two_parts = np.flatnonzero(out["piece"] == 1)
+    assert len(two_parts) == 2
+    np.testing.assert_allclose(np.sort(out["radius"][two_parts]), [100.0, 200.0], rtol=0.05)
+    assert abs(int(np.max(out["i0"][two_parts])) - 70) <= 2
+
+
 def test_broken_back_curves_keep_their_tangent():
     els = [Element("tangent", 200.0, 0, 0), Element("arc", 100.0, 1 / 200.0, 1 / 200.0, 1),
            Element("tangent", 120.0, 0, 0), Element("arc", 100.0, 1 / 200.0, 1 / 200.0, 2),

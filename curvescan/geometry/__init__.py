@@ -274,6 +274,16 @@ def _radius_se(parts: dict, sigma_chain: np.ndarray, tolerance_floor_m: float) -
     return np.hypot(statistical, systematic)
 
 
+def _radius_sd(parts: dict, sigma_chain: np.ndarray) -> np.ndarray:
+    """Statistical standard deviation of the radius: the fit's geometry times the pooled
+    residual and chain noise (no Student-t factor, no systematic share)."""
+    n = parts["n"].astype(float)
+    dof = np.maximum(n - 3.0, 0.0)
+    sig = sigma_chain[parts["chain"].astype(np.int64)]
+    pooled = np.sqrt((parts["rmse"] ** 2 * n + PRIOR_DOF * sig ** 2) / (dof + PRIOR_DOF))
+    return parts["radius_sd_unit"] * pooled
+
+
 def _ramp_end(prof: Profile, a: np.ndarray, b: np.ndarray, level: np.ndarray, sign: np.ndarray,
               scale: np.ndarray, outward: int) -> np.ndarray:
     """Where the curvature ramp between stations ``a``..``b`` meets zero.
@@ -306,7 +316,10 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     se = _radius_se(parts, prof.sigma, config.circle_tolerance_m)
     radius = parts["radius"]
     with np.errstate(invalid="ignore", divide="ignore"):
-        significant = radius / se >= config.min_significance
+        # existence is a question of noise only: the curvature against its purely
+        # statistical standard error (the systematic share of ``se`` is about how well
+        # the radius is known, not whether the road bends)
+        significant = radius / _radius_sd(parts, prof.sigma) >= config.min_significance
     keep = np.isfinite(radius) & (radius > 0) & (radius <= config.max_radius_m)
     keep &= significant | ~np.isfinite(se)
     p = {k: v[keep] for k, v in parts.items()}

@@ -24,12 +24,18 @@ import numpy as np
 
 from ._ragged import expand, find, group_argmax, group_quantile, stops_around
 from .circlefit import CircleFit, fit_circles
+from .compound import split_compound
 
 __all__ = ["Profile", "circular_parts"]
 
 #: A piece found after the first round must be this flat: relative change of curvature
 #: across it (slope times length over mean) below this value.
 PLATEAU_CHANGE = 0.6
+#: ... and a smaller relative change above this one counts as a ramp where it is more than
+#: RAMP_SIGMAS standard errors of the curvature slope (clean data tells a transition from
+#: an arc much more finely than noisy data).
+PLATEAU_MIN_CHANGE = 0.15
+RAMP_SIGMAS = 3.0
 ROUNDS = 5
 #: A vertex belongs to a circle within this many noise standard deviations.
 CONSENSUS_SIGMAS = 2.5
@@ -208,6 +214,10 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
     """
     out: list[dict[str, np.ndarray]] = []
     origin = np.arange(len(pf))
+    # vertex range a later-round piece's circle may grow over: back across the peel gap
+    # to the circular part it was peeled from (never into it); -1 = the piece's own range
+    reach_lo = np.full(len(pf), -1, dtype=np.int64)
+    reach_hi = np.full(len(pf), -1, dtype=np.int64)
     chain = prof.chain[pf] if len(pf) else np.zeros(0, dtype=np.int64)
     scale = prof.choose_scale(level, chain)
     sign = np.sign(_piece_integral(prof, pf, pl, scale))
@@ -215,6 +225,7 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
     for rnd in range(ROUNDS):
         keep = pl - pf >= 2
         pf, pl, origin, sign, scale = pf[keep], pl[keep], origin[keep], sign[keep], scale[keep]
+        reach_lo, reach_hi = reach_lo[keep], reach_hi[keep]
         if len(pf) == 0:
             break
         chain = prof.chain[pf]
@@ -226,15 +237,20 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         short = vhi - vlo < 3
         vlo = np.where(short, np.maximum(vlo - 2, prof.v_off[chain]), vlo)
         vhi = np.where(short, np.minimum(vhi + 2, prof.v_off[chain + 1]), vhi)
+        vlo = np.where(reach_lo >= 0, np.minimum(vlo, reach_lo), vlo)
+        vhi = np.where(reach_hi >= 0, np.maximum(vhi, reach_hi), vhi)
         cf, cl = _core(prof, pf, pl, scale)
         i0, i1 = _vertex_range(prof, prof.gs[cf], prof.gs[cl], vlo, vhi, minimum=SEED_VERTICES)
         centre_m = 0.5 * (prof.gs[cf] + prof.gs[cl])
         centre = np.clip(_nearest_vertex(prof, centre_m), i0, np.maximum(i1 - 1, i0))
         fit = _fit(prof, i0, i1, refine=False)
+        least = np.maximum(np.minimum(SEED_VERTICES, vhi - vlo), 3)
         for _ in range(4):
             tol = np.maximum(CONSENSUS_SIGMAS * prof.sigma[chain], tolerance_floor_m)
             g0, g1 = _consensus(prof, fit, centre, vlo, vhi, tol)
-            usable = (g1 - g0 >= 3) & np.isfinite(fit.radius)
+            # three vertices always lie on a circle: the consensus never shrinks below
+            # the seed (or the piece's vertices where it has fewer)
+            usable = (g1 - g0 >= least) & np.isfinite(fit.radius)
             g0, g1 = np.where(usable, g0, i0), np.where(usable, g1, i1)
             changed = (g0 != i0) | (g1 != i1)
             i0, i1 = g0, g1
@@ -251,6 +267,10 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         lo = prof.gm[i0]
         hi = prof.gm[np.maximum(i1 - 1, i0)]
         accept = np.isfinite(fit.radius) & (i1 - i0 >= 3)
+        # the piece's first level is read off noisy curvature: once the circle is known,
+        # read the part at the finest scale its own curvature allows
+        scale = np.where(accept, prof.choose_scale(1.0 / np.where(accept, fit.radius, 1.0),
+                                                   chain), scale)
         if rnd > 0:
             # a second arc must fill most of the stretch where the curvature is at least
             # half of its own, and be flat: a stretch of a transition fits a circle only
@@ -268,28 +288,34 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         gap = PEEL_GAP * prof.half_m[scale, chain]
         left_end = _station_at(prof, lo - gap, "right") - 1
         right_start = _station_at(prof, hi + gap, "left")
-        found = accept | (rnd == 0)
+        found = np.ones(len(accept), dtype=bool)
         new_pf = np.concatenate([pf[found], right_start[found]])
         new_pl = np.concatenate([left_end[found], pl[found]])
         new_origin = np.concatenate([origin[found], origin[found]])
+        new_reach_lo = np.concatenate([np.where(accept, vlo, reach_lo)[found],
+                                       np.where(accept, i1, reach_lo)[found]])
+        new_reach_hi = np.concatenate([np.where(accept, i0, reach_hi)[found],
+                                       np.where(accept, vhi, reach_hi)[found]])
         new_sign = np.concatenate([sign[found], sign[found]])
         last = len(prof.s) - 1
         valid = (new_pl > new_pf) & (prof.chain[np.clip(new_pf, 0, last)] ==
                                      prof.chain[np.clip(new_pl, 0, last)])
         new_pf, new_pl = new_pf[valid], new_pl[valid]
         new_origin, new_sign = new_origin[valid], new_sign[valid]
+        new_reach_lo, new_reach_hi = new_reach_lo[valid], new_reach_hi[valid]
         new_chain = prof.chain[new_pf]
         new_scale = prof.choose_scale(_piece_level(prof, new_pf, new_pl), new_chain)
         length = prof.s[new_pl] - prof.s[new_pf]
         turn = _piece_integral(prof, new_pf, new_pl, new_scale)
         worth = (length >= max(min_length_m, 1e-9)) & (turn * new_sign >= min_deflection_rad)
         pf, pl, origin = new_pf[worth], new_pl[worth], new_origin[worth]
+        reach_lo, reach_hi = new_reach_lo[worth], new_reach_hi[worth]
         sign, scale = new_sign[worth], new_scale[worth]
     if not out:
         return {k: np.zeros(0) for k in ("piece", "chain", "scale", "sign", "lo", "hi", "i0",
                                            "i1", "round") + fields}
     parts = {k: np.concatenate([o[k] for o in out]) for k in out[0]}
-    return merge_fragments(prof, parts, tolerance_floor_m)
+    return split_compound(prof.coords, prof.gm, prof.sigma, merge_fragments(prof, parts, tolerance_floor_m))
 
 
 def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
@@ -393,4 +419,13 @@ def _is_plateau(prof: Profile, lo: np.ndarray, hi: np.ndarray, sign: np.ndarray,
         mean = sk / cnt
         change = np.abs(slope) * (hi - lo) / np.abs(mean)
         consistent = np.abs(mean * radius - 1.0) < 0.5
-    return (mean > 0) & (change < PLATEAU_CHANGE) & consistent
+        # a smaller change is a ramp too where the noise cannot explain the slope:
+        # chord curvature over half window B carries noise of about sqrt(6) sigma / B^2,
+        # and stations are independent about once per window
+        half = prof.half_m[scale, chain]
+        k_sd = np.sqrt(6.0) * prof.sigma[chain] / half ** 2
+        n_eff = np.maximum((hi - lo) / half, 1.0)
+        slope_se = k_sd * np.sqrt(12.0 / n_eff) / np.maximum(hi - lo, 1e-9)
+        ramp = (change >= PLATEAU_CHANGE) | (
+            (change >= PLATEAU_MIN_CHANGE) & (np.abs(slope) >= RAMP_SIGMAS * slope_se))
+    return (mean > 0) & ~ramp & consistent
