@@ -57,8 +57,9 @@ PARAMETERS: tuple[Param, ...] = (
           "circular part (raised to 2.5 times the vertex noise or fit RMSE).", unit="m",
           stage="geometry", minimum=0.001, maximum=10.0, advanced=True),
     Param("min_significance", "float", 3.0,
-          "Keep a curve only when its curvature is this many standard errors from zero "
-          "(radius / radius standard error); rejects noise on straight roads.",
+          "Keep a curve only when its curvature is this many statistical standard errors "
+          "from zero (radius / its noise-only standard deviation); rejects noise on "
+          "straight roads.",
           stage="geometry", minimum=0.0, maximum=100.0, advanced=True),
 )
 
