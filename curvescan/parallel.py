@@ -292,7 +292,8 @@ def _plans(surveys: list[_Survey], config: Any):
     group = None
     if config.join_field is not None:
         group = np.concatenate([s.group for s in surveys])
-    part, reverse, chain_of = chain_order(end_xy, group, config.join_tolerance_m)
+    part, reverse, chain_of = chain_order(end_xy, group, config.join_tolerance_m,
+                                          config.through_junction_deg)
     first = np.r_[True, chain_of[1:] != chain_of[:-1]]
     home_of_chain = part_of[part[first]]
     home = home_of_chain[chain_of]          # per entry of the chain order

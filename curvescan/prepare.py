@@ -46,6 +46,11 @@ PARAMETERS: tuple[Param, ...] = (
     Param("join_field", "field", None,
           "Only join features into a chain where this field (road name or ref) is equal.",
           stage="prepare"),
+    Param("through_junction_deg", "float", 45.0,
+          "Where three or more line ends meet, join the two that continue each other most "
+          "straightly (turning at most this angle) into one chain, so a side road joining "
+          "mid-curve does not cut the curve in two; 0 joins only where exactly two ends "
+          "meet.", unit="deg", stage="prepare", minimum=0.0, maximum=90.0),
     Param("spike_angle_deg", "float", 150.0,
           "A vertex where the line turns back by more than this angle is a digitising spike "
           "and is removed.", unit="deg", stage="prepare", minimum=90.0, maximum=180.0,
@@ -236,7 +241,8 @@ def prepare(frame: gpd.GeoDataFrame, config: Any) -> Chains:
             raise InputError(f"join field {config.join_field!r} not found; fields: "
                              f"{', '.join(map(str, frame.columns.drop('geometry')))}")
         group = frame[config.join_field].to_numpy(dtype=object)[part_row]
-    chains = _join(coords, part_row, group, config.join_tolerance_m)
+    chains = _join(coords, part_row, group, config.join_tolerance_m,
+                   config.through_junction_deg)
     chains.crs = crs
     chains.skipped = skipped
     chains.notes = notes
@@ -326,15 +332,16 @@ def part_ends(parts: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.ndar
 
 
 def _join(parts: tuple[np.ndarray, np.ndarray], part_row: np.ndarray,
-          group: np.ndarray | None, tolerance: float) -> Chains:
-    """Join parts that continue each other at degree-2 nodes into chains."""
+          group: np.ndarray | None, tolerance: float, through_deg: float = 0.0) -> Chains:
+    """Join parts that continue each other into chains (see :func:`chain_order`)."""
     starts, ends, end_xy = part_ends(parts)
-    part, reverse, chain_of = chain_order(end_xy, group, tolerance)
+    part, reverse, chain_of = chain_order(end_xy, group, tolerance, through_deg)
     return assemble(parts[0], starts, ends, part_row, part, reverse, chain_of, tolerance)
 
 
 def chain_order(end_xy: np.ndarray, group: np.ndarray | None,
-                tolerance: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                tolerance: float, through_deg: float = 0.0,
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Which parts form which chain, in which order and direction, from the part ends alone.
 
     Parameters
@@ -348,6 +355,10 @@ def chain_order(end_xy: np.ndarray, group: np.ndarray | None,
         Parts join only where their group values are equal.
     tolerance : float
         Distance within which ends meet (m).
+    through_deg : float
+        At nodes where three or more ends meet (junctions), pair the ends that continue
+        each other most straightly, turning at most this angle, straightest pair first
+        (needs the directions); 0 joins at two-end nodes only.
 
     Returns
     -------
@@ -370,6 +381,9 @@ def chain_order(end_xy: np.ndarray, group: np.ndarray | None,
         ga, gb = group[a >> 1], group[b >> 1]
         ok &= pd.notna(ga) & (ga == gb)
     mate[a[ok]], mate[b[ok]] = b[ok], a[ok]
+    if through_deg > 0 and end_xy.shape[1] >= 4:
+        a, b = _through_pairs(end_xy, node, degree, group, through_deg)
+        mate[a], mate[b] = b, a
     # oriented traversal: entering part p by end x, one leaves by x ^ 1
     succ = mate[np.arange(2 * n) ^ 1]
     head, pos = _rank(succ)
@@ -399,6 +413,56 @@ def chain_order(end_xy: np.ndarray, group: np.ndarray | None,
     order = np.lexsort((pos[nodes], chain_of))
     nodes, chain_of = nodes[order], chain_of[order]
     return nodes >> 1, (nodes & 1) == 1, chain_of
+
+
+#: Junctions with more ends than this are left unjoined (a cluster of ends, not a junction).
+JUNCTION_MAX_ENDS = 8
+
+
+def _through_pairs(end_xy: np.ndarray, node: np.ndarray, degree: np.ndarray,
+                   group: np.ndarray | None, through_deg: float) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs of ends ``(a, b)`` that continue each other through junctions.
+
+    Every pair of ends at a node of 3 to :data:`JUNCTION_MAX_ENDS` ends is a candidate when
+    the road turns at most ``through_deg`` from one into the other (the inward directions
+    point nearly opposite ways), the two ends belong to different parts and, with a
+    ``group``, to the same group. Per node the straightest candidate is taken first, then
+    the straightest among the ends still free, and so on.
+    """
+    ends = np.flatnonzero((degree[node] >= 3) & (degree[node] <= JUNCTION_MAX_ENDS))
+    ends = ends[np.argsort(node[ends], kind="stable")]
+    if len(ends) == 0:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    first = np.r_[True, node[ends][1:] != node[ends][:-1]]
+    start = np.flatnonzero(first)
+    count = np.diff(np.r_[start, len(ends)])
+    pa, pb = [], []
+    for k in np.unique(count):
+        i, j = np.triu_indices(int(k), 1)
+        base = start[count == k][:, None]
+        pa.append((base + i).ravel())
+        pb.append((base + j).ravel())
+    a, b = ends[np.concatenate(pa)], ends[np.concatenate(pb)]
+    straight = -np.einsum("ij,ij->i", end_xy[a, 2:], end_xy[b, 2:])
+    ok = ((a >> 1) != (b >> 1)) & (straight >= np.cos(np.radians(through_deg)))
+    if group is not None:
+        ga, gb = group[a >> 1], group[b >> 1]
+        ok &= pd.notna(ga) & (ga == gb)
+    a, b, straight = a[ok], b[ok], straight[ok]
+    order = np.lexsort((-straight, node[a]))
+    a, b = a[order], b[order]
+    used = np.zeros(len(end_xy), dtype=bool)
+    take_a, take_b = [], []
+    while len(a):
+        best = np.r_[True, node[a][1:] != node[a][:-1]]  # straightest left at each node
+        take_a.append(a[best])
+        take_b.append(b[best])
+        used[a[best]] = used[b[best]] = True
+        free = ~used[a] & ~used[b]
+        a, b = a[free], b[free]
+    if not take_a:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    return np.concatenate(take_a), np.concatenate(take_b)
 
 
 def assemble(xy: np.ndarray, starts: np.ndarray, ends: np.ndarray, part_row: np.ndarray,

@@ -113,10 +113,47 @@ def test_join_field_keeps_different_roads_apart():
     assert _chains(frame_from_lines([a, b], ref=["A", "B"]), join_field="ref").n_chains == 2
 
 
-def test_junction_of_three_is_not_joined():
+def test_junction_of_three_joins_the_straight_through_road():
+    """A T junction: the through road is one chain, the side road its own; with
+    ``through_junction_deg=0`` all three stay apart (joins at two-end nodes only)."""
     lines = [np.array([[0, 0], [100, 0]]), np.array([[100, 0], [200, 0]]),
              np.array([[100, 0], [100, 100]])]
-    assert _chains(frame_from_lines(lines)).n_chains == 3
+    chains = _chains(frame_from_lines(lines))
+    assert chains.n_chains == 2
+    assert sorted(np.round(chains.lengths, 6)) == [100.0, 200.0]
+    assert _chains(frame_from_lines(lines), through_junction_deg=0.0).n_chains == 3
+
+
+def test_junction_pairs_straightest_ends_and_respects_the_angle():
+    """Four ends at a crossroads pair into the two straight roads; a Y whose branches both
+    turn more than the limit is not joined."""
+    cross = [np.array([[-100, 0], [0, 0]]), np.array([[0, 0], [100, 2]]),
+             np.array([[0, -100], [0, 0]]), np.array([[0, 0], [-3, 100]])]
+    chains = _chains(frame_from_lines(cross))
+    assert chains.n_chains == 2
+    wide_y = [np.array([[-100, 0], [0, 0]]), np.array([[0, 0], [60, 80]]),
+              np.array([[0, 0], [60, -80]])]  # each branch turns 53 degrees
+    assert _chains(frame_from_lines(wide_y)).n_chains == 3
+    assert _chains(frame_from_lines(wide_y), through_junction_deg=60.0).n_chains == 2
+
+
+def test_side_road_joining_mid_curve_does_not_cut_the_curve():
+    """A curve split where a side road joins it is found as one curve with its radius."""
+    from curvescan import scan
+    from curvescan.synthetic import vertices
+
+    al = simple_curve(150.0, 60.0, spiral_m=0.0, tangent_m=200.0)
+    xy, _ = vertices(al, spacing_m=5.0)
+    mid = len(xy) // 2
+    side = np.array([xy[mid], xy[mid] + 120.0 * np.array([0.6, -0.8])])
+    frame = frame_from_lines([xy[:mid + 1], xy[mid:], side])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        result = scan(frame)
+        cut = scan(frame, through_junction_deg=0.0)
+    assert len(result.curves) == 1
+    assert result.curves["radius_m"].iloc[0] == pytest.approx(150.0, rel=0.002)
+    assert len(cut.curves) == 2
 
 
 def test_ring_split_in_parts_is_one_closed_chain():
