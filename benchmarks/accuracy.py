@@ -14,6 +14,11 @@ truth:
 * calibration of ``radius_se_m``: share of curves whose true radius lies within two
   standard errors.
 
+Scenarios: ``clean`` (vertices every 10 m), ``noisy`` (irregular 5-25 m, 0.5 m noise),
+``simplified`` (Douglas-Peucker 0.5 m plus 0.2 m noise), ``split`` (clean, features split
+at random vertices and some reversed), ``sparse`` (20-60 m, 0.05 m noise) and ``dense``
+(1-3 m, 0.3 m noise, like a GPS trace).
+
 Usage::
 
     python benchmarks/accuracy.py                # all scenarios, 200 alignments each
@@ -46,6 +51,10 @@ SCENARIOS = {
     "noisy": dict(jitter=(5.0, 25.0), noise_m=0.5),
     "simplified": dict(simplify_m=0.5, noise_m=0.2),
     "split": dict(spacing_m=10.0, noise_m=0.0, split=True),
+    # beyond the four: sparse vertices (old or generalised layers) and dense noisy
+    # ones (GPS traces)
+    "sparse": dict(jitter=(20.0, 60.0), noise_m=0.05),
+    "dense": dict(jitter=(1.0, 3.0), noise_m=0.3),
 }
 MAX_R, MIN_DEFL = 1500.0, 10.0
 
@@ -171,7 +180,8 @@ def score(result, truth: pd.DataFrame, refs: list, frame=None) -> tuple[dict, pd
                 det_matched[seg.index.get_loc(best)] = True
                 d = seg.loc[best]
                 ts, te = sorted((t["s_start_ref"], t["s_end_ref"]))
-                rec.update(found=True, r_fit=d["r_fit"], r_se=d["radius_se_m"],
+                rec.update(found=True, curve_id=int(d["curve_id"]), r_fit=d["r_fit"],
+                           r_se=d["radius_se_m"],
                            circ_err_m=max(abs(d["lo"] - lo), abs(d["hi"] - hi)),
                            ends_err_m=max(abs(d["c_lo"] - ts), abs(d["c_hi"] - te)),
                            dir_ok=d["direction"] == (

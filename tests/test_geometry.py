@@ -171,6 +171,22 @@ def test_noisy_irregular_vertices_radius_within_se():
     del rng
 
 
+@pytest.mark.parametrize("radius,deflection,spiral", [(120.0, 50.0, 60.0), (80.0, 60.0, 40.0)])
+def test_sparse_vertices_on_a_spiralled_curve_radius_within_se(radius, deflection, spiral):
+    """Vertices 25-45 m apart leave a short arc two or three vertices: the radius may be
+    off by a few per cent, but the standard error must say so (within two for most)."""
+    al = simple_curve(radius, deflection, spiral_m=spiral, tangent_m=300.0)
+    hits = found = 0
+    for k in range(20):
+        xy, _ = vertices(al, np.random.default_rng(k), jitter=(25.0, 45.0), noise_m=0.05)
+        c = _curves([xy]).curves
+        found += len(c) == 1
+        if len(c) == 1:
+            hits += abs(c["radius_m"].iloc[0] - radius) <= 2 * c["radius_se_m"].iloc[0]
+    assert found >= 19
+    assert hits >= 16
+
+
 def test_split_and_reversed_features_find_the_same_curves():
     al = simple_curve(250.0, 80.0, spiral_m=40.0)
     xy = _digitise(al, 7.0)

@@ -21,6 +21,7 @@ from .circular import (
     cumulative_turn,
     half_level_span,
 )
+from .circlefit import fit_circles
 from .noise import vertex_noise
 from .pieces import piece_table, resolve_overlaps
 from .resample import (
@@ -275,6 +276,54 @@ def _radius_se(parts: dict, sigma_chain: np.ndarray, tolerance_floor_m: float) -
     return np.hypot(statistical, systematic)
 
 
+#: Parts with at most this many vertices get the shift spread in their standard error.
+FEW_VERTICES = 5
+#: Share of the shift spread taken as a standard error (calibrated with
+#: benchmarks/accuracy.py on sparse vertices).
+SHIFT_SHARE = 0.5
+
+
+def _shift_spread(prof: Any, parts: dict, tolerance_floor_m: float) -> np.ndarray:
+    """Radius uncertainty of a fit through few vertices, from its neighbours.
+
+    Three to five vertices fit a circle (nearly) exactly, so their residuals say nothing
+    about whether they all lie on the arc: on sparse vertices some belong to a transition.
+    The same fit moved one vertex back and one forward along the chain shows how fast the
+    radius changes there; :data:`SHIFT_SHARE` of the larger change is taken as a standard
+    error. Zero for parts with more than :data:`FEW_VERTICES` vertices and for parts of
+    four or more vertices that lie within the consensus tolerance of their circle.
+    """
+    i0 = parts["i0"].astype(np.int64)
+    i1 = parts["i1"].astype(np.int64)
+    chain = parts["chain"].astype(np.int64)
+    # only where the consensus could not vouch for the vertices: three (always on a
+    # circle) or a few that miss the circle by more than the consensus tolerance
+    tol = np.maximum(CONSENSUS_SIGMAS * prof.sigma[chain], tolerance_floor_m)
+    unsure = (i1 - i0 <= 3) | (parts["rmse"] > tol)
+    few = np.flatnonzero((i1 - i0 <= FEW_VERTICES) & unsure & np.isfinite(parts["radius"]))
+    out = np.zeros(len(i0))
+    if len(few) == 0:
+        return out
+    lo, hi = prof.v_off[chain[few]], prof.v_off[chain[few] + 1]
+    spread = np.zeros(len(few))
+    for step in (-1, 1):
+        a, b = i0[few] + step, i1[few] + step
+        ok = (a >= lo) & (b <= hi)
+        idx, grp = expand(np.where(ok, a, 0), np.where(ok, b - a, 0))
+        fit = fit_circles(prof.coords[idx, 0], prof.coords[idx, 1], grp, len(few),
+                          refine=False)
+        # the moved circle must bend the same way (its centre on the same side)
+        same_side = (fit.cx - prof.coords[np.clip(a + 1, 0, len(prof.coords) - 1), 0]) * (
+            parts["cx"][few] - prof.coords[i0[few] + 1, 0]) + (
+            fit.cy - prof.coords[np.clip(a + 1, 0, len(prof.coords) - 1), 1]) * (
+            parts["cy"][few] - prof.coords[i0[few] + 1, 1]) > 0
+        change = np.abs(fit.radius - parts["radius"][few])
+        use = ok & same_side & np.isfinite(change)
+        spread = np.where(use, np.maximum(spread, change), spread)
+    out[few] = SHIFT_SHARE * spread
+    return out
+
+
 def _radius_sd(parts: dict, sigma_chain: np.ndarray) -> np.ndarray:
     """Statistical standard deviation of the radius: the fit's geometry times the pooled
     residual and chain noise (no Student-t factor, no systematic share)."""
@@ -314,7 +363,8 @@ def _ramp_end(prof: Profile, a: np.ndarray, b: np.ndarray, level: np.ndarray, si
 
 def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.DataFrame:
     """One curve per circular part: extents, transitions, deflection, fit quality."""
-    se = _radius_se(parts, prof.sigma, config.circle_tolerance_m)
+    se = np.hypot(_radius_se(parts, prof.sigma, config.circle_tolerance_m),
+                  _shift_spread(prof, parts, config.circle_tolerance_m))
     radius = parts["radius"]
     with np.errstate(invalid="ignore", divide="ignore"):
         # existence is a question of noise only: the curvature against its purely

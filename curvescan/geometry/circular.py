@@ -46,6 +46,9 @@ PEEL_GAP = 1.0
 PIECE_COVER = 0.5
 #: Vertices a seed fit takes at least (where the piece has them).
 SEED_VERTICES = 5
+#: The consensus never shrinks a circular part below this many vertices (three always
+#: lie on a circle).
+CONSENSUS_MIN_VERTICES = 5
 
 
 @dataclass
@@ -194,6 +197,15 @@ def _consensus(prof: Profile, fit: CircleFit, centre: np.ndarray, vlo, vhi, tol)
     return i0, i1
 
 
+def _middle_three(fit: CircleFit, tol: np.ndarray, centre: np.ndarray, i0: np.ndarray,
+                  i1: np.ndarray, vlo: np.ndarray, vhi: np.ndarray):
+    """The vertex range, cut to the three vertices around ``centre`` where the fit's RMSE
+    is beyond ``tol`` (its vertices are not on one circle)."""
+    spread = (fit.rmse > tol) & (i1 - i0 > 3) & (vhi - vlo >= 3)
+    c0 = np.clip(centre - 1, vlo, np.maximum(vhi - 3, vlo))
+    return np.where(spread, c0, i0), np.where(spread, c0 + 3, i1)
+
+
 def _station_at(prof: Profile, g: np.ndarray, side: str) -> np.ndarray:
     return find(prof.gs, g, side=side)
 
@@ -244,9 +256,13 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         centre_m = 0.5 * (prof.gs[cf] + prof.gs[cl])
         centre = np.clip(_nearest_vertex(prof, centre_m), i0, np.maximum(i1 - 1, i0))
         fit = _fit(prof, i0, i1, refine=False)
-        least = np.maximum(np.minimum(SEED_VERTICES, vhi - vlo), 3)
+        tol = np.maximum(CONSENSUS_SIGMAS * prof.sigma[chain], tolerance_floor_m)
+        # a seed whose vertices do not lie on one circle (RMSE beyond the tolerance) spans
+        # more than the arc, as on sparse vertices: start from the three around its middle
+        i0, i1 = _middle_three(fit, tol, centre, i0, i1, vlo, vhi)
+        fit = _fit(prof, i0, i1, refine=False)
+        least = np.maximum(np.minimum(CONSENSUS_MIN_VERTICES, vhi - vlo), 3)
         for _ in range(4):
-            tol = np.maximum(CONSENSUS_SIGMAS * prof.sigma[chain], tolerance_floor_m)
             g0, g1 = _consensus(prof, fit, centre, vlo, vhi, tol)
             # three vertices always lie on a circle: the consensus never shrinks below
             # the seed (or the piece's vertices where it has fewer)
@@ -260,6 +276,9 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
                 getattr(fit, name)[ok] = getattr(new, name)[ok]
             if not changed.any():
                 break
+        # where the consensus kept a seed that misses its circle, the three vertices around
+        # the middle are nearer the arc than a circle forced through transition vertices
+        i0, i1 = _middle_three(fit, tol, centre, i0, i1, vlo, vhi)
         final = _fit(prof, i0, i1)  # geometric refinement once the vertex set is settled
         ok = np.isfinite(final.radius)
         for name in fields:
