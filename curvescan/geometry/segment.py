@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._ragged import expand
+from ._ragged import expand, scatter_max
 
 __all__ = ["find_runs"]
 
@@ -76,5 +76,5 @@ def _group_max(values: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.n
     """Maximum of ``values[starts[i]:ends[i] + 1]`` for each run."""
     idx, grp = expand(starts, ends - starts + 1)
     out = np.full(len(starts), -np.inf)
-    np.maximum.at(out, grp, values[idx])
+    scatter_max(out, grp, values[idx])
     return out
