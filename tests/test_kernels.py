@@ -159,3 +159,51 @@ def test_circle_fits(monkeypatch):
         assert np.isfinite(a.radius).sum() > 40
         for k in ("cx", "cy", "radius", "radius_se", "rmse", "n", "radius_sd_unit"):
             _equal(getattr(a, k), getattr(b, k))
+
+
+def test_find_runs(monkeypatch):
+    from curvescan.geometry.segment import find_runs
+
+    rng = np.random.default_rng(11)
+    n = 3000
+    chain = np.repeat(np.arange(6), n // 6)
+    s = np.concatenate([np.arange(n // 6) * 4.0] * 6)
+    kappa = 0.004 * np.sin(s / 150.0 + chain) + rng.normal(0, 0.0008, n)
+    kappa[::97] = 0.0
+    kw = dict(kappa_on=0.0005, kappa_off=0.00025, min_deflection_rad=0.04,
+              min_length_m=5.0, merge_gap_m=20.0)
+    a, b = _both(monkeypatch, lambda: find_runs(kappa, s, chain, **kw))
+    assert len(a[0]) > 10
+    _equal(a, b)
+
+
+def test_circle_gaps(monkeypatch):
+    rng = np.random.default_rng(4)
+    coords = rng.normal(0, 100.0, (200, 2)) + [6e5, 5e6]
+    fit = circlefit.CircleFit(cx=np.array([6e5, 6e5 + 50.0, np.nan]),
+                              cy=np.array([5e6, 5e6 - 20.0, 5e6]),
+                              radius=np.array([80.0, 10.0, 5.0]),
+                              radius_se=np.zeros(3), rmse=np.zeros(3), n=np.zeros(3, int),
+                              radius_sd_unit=np.zeros(3))
+    idx = rng.integers(0, 200, 500)
+    grp = rng.integers(0, 3, 500)
+    a, b = _both(monkeypatch, lambda: circlefit.circle_gaps(coords, idx, grp, fit))
+    _equal(a, b)
+
+
+def test_chord_curvature_into_a_row(monkeypatch):
+    chains, _ = _chains()
+    st = resample.resample_stations(chains.coords, chains.measure, chains.offsets, 4.0)
+    args = ((st["x"], st["y"]), st["s"], st["chain"], st["st_off"],
+            np.full(chains.n_chains, 5))
+    at = np.arange(3, len(st["s"]), 2)
+
+    def into():
+        row = np.full(len(st["s"]), 7.0)
+        return resample.chord_curvature(*args, at=at, out=row)
+
+    a, b = _both(monkeypatch, into)
+    plain = resample.chord_curvature(*args, at=at)
+    np.testing.assert_array_equal(a[at], plain)
+    np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-15)  # atan2: see module doc
+    assert (a[:3] == 7.0).all() and (b[4:len(b):2] == 7.0).all()

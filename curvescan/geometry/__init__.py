@@ -198,7 +198,7 @@ def _batch(chains: Any, config: Any) -> GeometryResult:
     K = np.zeros((len(SCALE_FACTORS), len(s)))
     K[0] = kf
     for i, h in enumerate(halves[1:], start=1):
-        K[i, active] = chord_curvature(xy, s, chain, st_off, h, at=active)
+        chord_curvature(xy, s, chain, st_off, h, at=active, out=K[i])
     prof = Profile(s=s, gs=gs, K=K, chain=chain, gm=gm, coords=chains.coords,
                    v_off=chains.offsets, sigma=sigma,
                    half_m=np.stack(halves).astype(float) * spacing)

@@ -16,6 +16,8 @@ returns the differences and numpy takes the ``atan2``.
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 
 try:  # pragma: no cover - exercised through both branches in tests
@@ -28,8 +30,8 @@ except ImportError:  # pragma: no cover
 __all__ = ["HAVE_NUMBA", "ENABLED", "compiled", "chord_kappa"]
 
 #: Use the compiled kernels (where numba is installed). Tests set it to False to run the
-#: numpy fallbacks and compare.
-ENABLED = True
+#: numpy fallbacks and compare; the environment variable ``CURVESCAN_NUMBA=0`` sets it too.
+ENABLED = os.environ.get("CURVESCAN_NUMBA", "1") != "0"
 
 
 def compiled() -> bool:
@@ -40,17 +42,19 @@ def compiled() -> bool:
 if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
 
     @njit(parallel=True, cache=True)
-    def _chord_kappa(x, y, s, chain, st_off, half, at):
+    def _chord_kappa(x, y, s, chain, st_off, half, at, out, scatter):
+        """Chord curvature at stations ``at`` into ``out[t]`` (or ``out[at[t]]`` when
+        ``scatter``)."""
         n = at.shape[0]
-        out = np.empty(n)
         for t in prange(n):
             i = at[t]
+            o = i if scatter else np.int64(t)
             ch = chain[i]
             start = st_off[ch]
             last = st_off[ch + 1] - 1
             k = min(half[ch], (last - start) // 2)
             if k <= 0:
-                out[t] = 0.0
+                out[o] = 0.0
                 continue
             c = min(max(i, start + k), last - k)
             a = c - k
@@ -61,8 +65,7 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
             d2y = y[b] - y[c]
             turn = np.arctan2(d1x * d2y - d1y * d2x, d1x * d2x + d1y * d2y)
             span = 0.5 * (s[b] - s[a])
-            out[t] = turn / span if span > 0 else 0.0
-        return out
+            out[o] = turn / span if span > 0 else 0.0
 
     @njit(parallel=True, cache=True)
     def resample_kernel(cx, cy, gm, v_off, base, st_off, step):
@@ -202,6 +205,24 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
                 out[g] = v
 
     @njit(cache=True)
+    def stops_around_kernel(idx, grp, centre, stop, n):
+        """Nearest flagged index on each side of each group's centre (see ``_ragged``)."""
+        left = np.full(n, -1, dtype=np.int64)
+        right = np.full(n, np.iinfo(np.int64).max, dtype=np.int64)
+        for t in range(idx.shape[0]):
+            if not stop[t]:
+                continue
+            g = grp[t]
+            i = idx[t]
+            if i > centre[g]:
+                if i < right[g]:
+                    right[g] = i
+            elif i < centre[g]:
+                if i > left[g]:
+                    left[g] = i
+        return left, right
+
+    @njit(cache=True)
     def _group_order(grp, n):
         """Positions of each group's members in index order: ``(order, first, counts)``."""
         counts = np.zeros(n, dtype=np.int64)
@@ -309,6 +330,42 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
         return out
 
     @njit(cache=True)
+    def label_runs_kernel(kappa, chain, kappa_off):
+        """Maximal runs of one label (sign of ``kappa`` where ``|kappa| >= kappa_off``,
+        else 0) within a chain: ``starts, ends`` (inclusive) and the label (int8)."""
+        n = kappa.shape[0]
+        starts = np.empty(n, dtype=np.int64)
+        ends = np.empty(n, dtype=np.int64)
+        lab = np.empty(n, dtype=np.int8)
+        r = -1
+        prev = 0
+        for i in range(n):
+            k = kappa[i]
+            lb = 0
+            if abs(k) >= kappa_off:
+                lb = 1 if k > 0 else (-1 if k < 0 else 0)
+            if i == 0 or lb != prev or chain[i] != chain[i - 1]:
+                r += 1
+                starts[r] = i
+                lab[r] = lb
+            ends[r] = i
+            prev = lb
+        return starts[:r + 1].copy(), ends[:r + 1].copy(), lab[:r + 1].copy()
+
+    @njit(cache=True)
+    def range_max_abs_kernel(values, starts, ends):
+        """Largest ``|values|`` over each inclusive range (NaN if one is NaN)."""
+        out = np.full(starts.shape[0], -np.inf)
+        for g in range(starts.shape[0]):
+            m = out[g]
+            for i in range(starts[g], ends[g] + 1):
+                v = abs(values[i])
+                if v > m or v != v:
+                    m = v
+            out[g] = m
+        return out
+
+    @njit(cache=True)
     def moment_sums_kernel(x, y, group, n_groups):
         """Counts, coordinate sums, and sums of ``XX, YY, XY, XZ, YZ, ZZ`` of the points
         centred on their group's mean ``sum / count`` (``Z = X^2 + Y^2``), in index order."""
@@ -375,6 +432,17 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
         return jtj, jtd
 
     @njit(cache=True)
+    def circle_gap_kernel(coords, idx, grp, cx, cy, r):
+        """``|distance from the centre - radius|`` of vertices ``idx`` from their group's
+        circle (see ``circlefit.circle_gaps``)."""
+        out = np.empty(idx.shape[0])
+        for t in range(idx.shape[0]):
+            g = grp[t]
+            i = idx[t]
+            out[t] = abs(np.hypot(coords[i, 0] - cx[g], coords[i, 1] - cy[g]) - r[g])
+        return out
+
+    @njit(cache=True)
     def cost_kernel(X, Y, group, active, a, b, r, n_groups):
         """Sum of squared distances from the circles over the points of active groups."""
         out = np.zeros(n_groups)
@@ -387,9 +455,14 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
         return out
 
 
-def chord_kappa(x, y, s, chain, st_off, half, at):
-    """Compiled chord curvature at stations ``at`` (see ``resample.chord_curvature``)."""
-    return _chord_kappa(np.ascontiguousarray(x), np.ascontiguousarray(y),
-                        s, chain.astype(np.int64, copy=False),
-                        st_off.astype(np.int64, copy=False),
-                        np.asarray(half, dtype=np.int64), np.asarray(at, dtype=np.int64))
+def chord_kappa(x, y, s, chain, st_off, half, at, out=None):
+    """Compiled chord curvature at stations ``at`` (see ``resample.chord_curvature``);
+    with ``out`` (one value per station) written to ``out[at]`` instead."""
+    at = np.asarray(at, dtype=np.int64)
+    scatter = out is not None
+    if not scatter:
+        out = np.empty(len(at))
+    _chord_kappa(np.ascontiguousarray(x), np.ascontiguousarray(y), s,
+                 chain.astype(np.int64, copy=False), st_off.astype(np.int64, copy=False),
+                 np.asarray(half, dtype=np.int64), at, out, scatter)
+    return out

@@ -79,6 +79,10 @@ def stops_around(idx: np.ndarray, grp: np.ndarray, centre: np.ndarray, stop: np.
     Returns ``(left, right)``: the largest ``idx`` below the centre where ``stop`` holds
     (-1 if none) and the smallest above it (``int64`` max if none).
     """
+    if kn.compiled() and np.issubdtype(np.asarray(centre).dtype, np.integer):
+        return kn.stops_around_kernel(np.asarray(idx, dtype=np.int64),
+                                      np.asarray(grp, dtype=np.int64),
+                                      np.asarray(centre, dtype=np.int64), stop, n)
     big = np.iinfo(np.int64).max
     right = np.full(n, big)
     sel = stop & (idx > centre[grp])

@@ -23,7 +23,7 @@ import numpy as np
 
 from . import _kernels as kn
 
-__all__ = ["CircleFit", "hyper_fit", "geometric_fit", "fit_circles"]
+__all__ = ["CircleFit", "hyper_fit", "geometric_fit", "fit_circles", "circle_gaps"]
 
 
 @dataclass
@@ -177,7 +177,8 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
         cost = np.where(better, new_cost, cost)
         lam = np.where(better, lam * 0.3, lam * 10.0)
         # a group is done when its step is negligible or damping has given up
-        tiny = np.abs(step).max(axis=1) <= 1e-10 * (np.abs(r) + 1.0)
+        big = np.maximum(np.maximum(np.abs(step[:, 0]), np.abs(step[:, 1])), np.abs(step[:, 2]))
+        tiny = big <= 1e-10 * (np.abs(r) + 1.0)
         active &= ~(tiny | (lam > 1e6))
     if use:
         JTJ, _ = kn.normal_kernel(X, Y, group, everyone, a, b, r, n_groups)
@@ -186,8 +187,10 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
     dof = n - 3
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = np.where(dof > 0, cost / np.maximum(dof, 1), np.nan)
-        cov = np.linalg.pinv(JTJ)
-        unit = np.sqrt(np.maximum(cov[:, 2, 2], 0.0))
+        c22 = np.full(n_groups, np.nan)  # groups that were never fitted stay NaN
+        if live.any():
+            c22[live] = np.linalg.pinv(JTJ[live])[:, 2, 2]
+        unit = np.sqrt(np.maximum(c22, 0.0))
         se = unit * np.sqrt(s2)
         rmse = np.sqrt(cost / n)
     bad = ~live
@@ -245,3 +248,13 @@ def fit_circles(x: np.ndarray, y: np.ndarray, group: np.ndarray, n_groups: int,
     nan = np.full(n_groups, np.nan)
     return CircleFit(cx=cx, cy=cy, radius=r, radius_se=nan, rmse=rmse, n=n.astype(int),
                      radius_sd_unit=nan.copy())
+
+
+def circle_gaps(coords: np.ndarray, idx: np.ndarray, grp: np.ndarray, fit: CircleFit) -> np.ndarray:
+    """Distance (m) of the vertices ``coords[idx]`` from the circle of their group ``grp``."""
+    if kn.compiled():
+        return kn.circle_gap_kernel(np.ascontiguousarray(coords, dtype=float),
+                                    np.asarray(idx, dtype=np.int64),
+                                    np.asarray(grp, dtype=np.int64), fit.cx, fit.cy, fit.radius)
+    return np.abs(np.hypot(coords[idx, 0] - fit.cx[grp], coords[idx, 1] - fit.cy[grp])
+                  - fit.radius[grp])

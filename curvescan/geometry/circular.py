@@ -25,7 +25,7 @@ import numpy as np
 from . import _kernels as kn
 from ._ragged import (expand, find, group_argmax, group_quantile, scatter_max, scatter_min,
                       stops_around)
-from .circlefit import CircleFit, fit_circles
+from .circlefit import CircleFit, circle_gaps, fit_circles
 
 __all__ = ["Profile", "circular_parts"]
 
@@ -165,8 +165,7 @@ def _consensus(prof: Profile, fit: CircleFit, centre: np.ndarray, vlo, vhi, tol)
     """
     n = len(centre)
     idx, grp = expand(vlo, vhi - vlo)
-    d = np.abs(np.hypot(prof.coords[idx, 0] - fit.cx[grp], prof.coords[idx, 1] - fit.cy[grp])
-               - fit.radius[grp])
+    d = circle_gaps(prof.coords, idx, grp, fit)
     bad = ~(d <= tol[grp])
     same_next = np.r_[grp[1:] == grp[:-1], False]
     same_prev = np.r_[False, grp[1:] == grp[:-1]]

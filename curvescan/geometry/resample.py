@@ -81,7 +81,7 @@ def resample_stations(coords: np.ndarray, measure: np.ndarray, offsets: np.ndarr
 
 def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np.ndarray,
                     half_window: np.ndarray, at: np.ndarray | None = None,
-                    use_compiled: bool = True) -> np.ndarray:
+                    use_compiled: bool = True, out: np.ndarray | None = None) -> np.ndarray:
     """Curvature from the heading change between two chords of ``half_window`` stations.
 
     At station ``j`` the chords are ``j-k -> j`` and ``j -> j+k``; curvature is the angle
@@ -101,6 +101,8 @@ def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np
     use_compiled : bool
         Use the compiled kernel where numba is installed (the numpy form gives the same
         values).
+    out : ndarray, optional
+        One value per station: the curvature is written to ``out[at]`` and ``out`` returned.
 
     Returns
     -------
@@ -110,7 +112,10 @@ def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np
     x, y = (xy[:, 0], xy[:, 1]) if isinstance(xy, np.ndarray) else xy
     idx = np.arange(len(s)) if at is None else np.asarray(at, dtype=np.int64)
     if use_compiled and kn.compiled():
-        return kn.chord_kappa(x, y, s, chain, st_off, half_window, idx)
+        return kn.chord_kappa(x, y, s, chain, st_off, half_window, idx, out)
+    if out is not None:
+        out[idx] = chord_curvature(xy, s, chain, st_off, half_window, idx, use_compiled=False)
+        return out
     ch = chain[idx]
     start = st_off[ch]
     last = st_off[ch + 1] - 1
