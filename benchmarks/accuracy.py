@@ -272,7 +272,8 @@ def main():
         print(json.dumps(report, indent=2))
         return
     table = pd.DataFrame(report)
-    with pd.option_context("display.float_format", "{:.3f}".format, "display.width", 200):
+    with pd.option_context("display.float_format", "{:.3f}".format, "display.width", 250,
+                           "display.max_columns", None):
         print(table)
 
 

@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from ..declare import Param
-from ._ragged import expand, find, group_quantile
+from ._ragged import expand, find, group_quantile, scatter_max, scatter_min
 from .circular import (
     CONSENSUS_SIGMAS,
     Profile,
@@ -24,13 +24,8 @@ from .circular import (
 from .circlefit import fit_circles
 from .noise import vertex_noise
 from .pieces import piece_table, resolve_overlaps
-from .resample import (
-    chord_curvature,
-    global_measure,
-    make_stations,
-    resample,
-    station_heading,
-)
+from . import _kernels as kn
+from .resample import chord_curvature, make_stations, resample_stations
 from .segment import find_runs
 from .stations import Stations
 
@@ -77,6 +72,11 @@ class GeometryResult:
 def _chain_half_windows(chains: Any, spacing: float, smoothing: float) -> np.ndarray:
     """Half-window in stations per chain: half the smoothing length, widened to the
     chain's median vertex spacing so a window always spans several vertices."""
+    if kn.compiled():
+        med = kn.median_segment_kernel(np.asarray(chains.measure, dtype=float),
+                                       np.asarray(chains.offsets, dtype=np.int64))
+        half = np.maximum(0.5 * smoothing, 1.0 * med)
+        return np.maximum(np.round(half / spacing).astype(np.int64), 1)
     seg = np.diff(chains.measure)
     vchain = np.repeat(np.arange(chains.n_chains), np.diff(chains.offsets))
     same = vchain[1:] == vchain[:-1]
@@ -169,17 +169,14 @@ def _concat_stations(parts: list) -> Stations:
 def _batch(chains: Any, config: Any) -> GeometryResult:
     """Curves of one batch of chains (the whole method; see :func:`find_curves`)."""
     spacing = config.station_spacing_m
-    xy, s, chain, st_off = resample(chains.coords, chains.measure, chains.offsets, spacing)
+    st = resample_stations(chains.coords, chains.measure, chains.offsets, spacing)
+    s, gs, chain, st_off, gm, base = (st[k] for k in ("s", "gs", "chain", "st_off", "gm",
+                                                        "base"))
+    xy = (st["x"], st["y"])
     half_fine = _chain_half_windows(chains, spacing, config.smoothing_length_m)
     kf = chord_curvature(xy, s, chain, st_off, half_fine)
-    heading = station_heading(xy, chain, st_off)
-    gm, base = global_measure(chains.measure, chains.offsets)
     # noise per chain, with the sagitta of real curvature removed
-    gs = s + base[chain]
-    j = np.clip(np.searchsorted(gs, gm), 1, len(gs) - 1)
-    mark = np.zeros(len(gs), dtype=bool)
-    mark[j - 1] = mark[j] = True  # the stations either side of each vertex
-    near = np.flatnonzero(mark)
+    near = _near_vertices(gs, gm)  # the stations either side of each vertex
     k_wide = chord_curvature(xy, s, chain, st_off, 3 * half_fine, at=near)
     k_at_vertex = np.interp(gm, gs[near], k_wide)
     sigma = vertex_noise(chains.coords, chains.offsets, chains.measure, k_at_vertex)
@@ -187,7 +184,7 @@ def _batch(chains: Any, config: Any) -> GeometryResult:
     det_m = np.sqrt(10.0 * sigma * config.max_radius_m)
     half_det = np.maximum(half_fine, np.round(np.minimum(det_m, 150.0) / spacing).astype(np.int64))
     kd = chord_curvature(xy, s, chain, st_off, half_det)
-    stations = make_stations(xy, s, chain, st_off, kf, heading)
+    stations = make_stations(xy, s, chain, st_off, kf, st["heading"])
     kappa_on = 1.0 / config.max_radius_m
     first, last = find_runs(
         kd, s, chain, kappa_on=kappa_on, kappa_off=0.5 * kappa_on,
@@ -203,7 +200,7 @@ def _batch(chains: Any, config: Any) -> GeometryResult:
     K = np.zeros((len(SCALE_FACTORS), len(s)))
     K[0] = kf
     for i, h in enumerate(halves[1:], start=1):
-        K[i, active] = chord_curvature(xy, s, chain, st_off, h, at=active)
+        chord_curvature(xy, s, chain, st_off, h, at=active, out=K[i])
     prof = Profile(s=s, gs=gs, K=K, chain=chain, gm=gm, coords=chains.coords,
                    v_off=chains.offsets, sigma=sigma,
                    half_m=np.stack(halves).astype(float) * spacing)
@@ -218,6 +215,16 @@ def _batch(chains: Any, config: Any) -> GeometryResult:
     return GeometryResult(stations=stations, curves=curves, segments=segments)
 
 
+def _near_vertices(gs: np.ndarray, gm: np.ndarray) -> np.ndarray:
+    """Sorted indices of the stations either side of each vertex (global measures)."""
+    if kn.compiled():
+        return kn.near_vertex_kernel(gs, gm)
+    j = np.clip(np.searchsorted(gs, gm), 1, len(gs) - 1)
+    mark = np.zeros(len(gs), dtype=bool)
+    mark[j - 1] = mark[j] = True
+    return np.flatnonzero(mark)
+
+
 def _around_runs(first, last, s, chain, st_off, margin_m):
     """Station indices within each run, extended by the run's length plus ``margin_m``
     (per chain) on both sides, clipped to the chain."""
@@ -230,9 +237,8 @@ def _around_runs(first, last, s, chain, st_off, margin_m):
     extra = np.ceil(reach / step).astype(np.int64)
     a = np.maximum(first - extra, st_off[ch])
     b = np.minimum(last + extra, st_off[ch + 1] - 1)
-    mark = np.zeros(len(s) + 1, dtype=np.int64)
-    np.add.at(mark, a, 1)
-    np.add.at(mark, b + 1, -1)
+    mark = (np.bincount(a, minlength=len(s) + 1)
+            - np.bincount(b + 1, minlength=len(s) + 1))
     return np.flatnonzero(np.cumsum(mark[:-1]) > 0)
 
 
@@ -350,11 +356,11 @@ def _ramp_end(prof: Profile, a: np.ndarray, b: np.ndarray, level: np.ndarray, si
         below = k < frac * level[grp]
         if outward < 0:
             pos = np.full(n, -1)
-            np.maximum.at(pos, grp[below], idx[below])
+            scatter_max(pos, grp[below], idx[below])
             pos = np.where(pos < 0, a, pos)
         else:
             pos = np.full(n, np.iinfo(np.int64).max)
-            np.minimum.at(pos, grp[below], idx[below])
+            scatter_min(pos, grp[below], idx[below])
             pos = np.where(pos == np.iinfo(np.int64).max, b, pos)
         out[frac] = prof.s[pos]
     s25, s75 = out[0.25], out[0.75]

@@ -1,12 +1,22 @@
-"""Compiled inner loops (numba) for the station passes, with numpy fallbacks.
+"""Compiled inner loops (numba) for the station and group passes, with numpy fallbacks.
 
-The chord curvature is computed tens of millions of times on a region; numba runs it in
-one pass without temporaries and on all cores (about ten times faster than the numpy
-form). Kernels are cached on disk after the first call. Where numba is not installed the
-numpy implementation in :mod:`curvescan.geometry.resample` is used; results are equal.
+The geometry stage walks tens of millions of stations on a region. numba runs each pass
+in one loop without temporaries, chain by chain (on all cores where the loop is
+parallel), instead of many whole-array numpy passes with searches, sorts and scatters.
+Kernels are cached on disk after the first call.
+
+Every kernel gives exactly the values of the numpy form it replaces (same operations in
+the same order; sums accumulate in index order as ``np.bincount`` does), and that numpy
+form stays in the calling module as the fallback where numba is not installed, or when
+:data:`ENABLED` is set to False (the tests compare both). One exception: the compiled
+chord curvature takes ``atan2`` from the C library, numpy its own vectorised one; they
+differ in the last bit. Where an angle is a result (``station_heading``) the kernel
+returns the differences and numpy takes the ``atan2``.
 """
 
 from __future__ import annotations
+
+import os
 
 import numpy as np
 
@@ -17,22 +27,34 @@ try:  # pragma: no cover - exercised through both branches in tests
 except ImportError:  # pragma: no cover
     HAVE_NUMBA = False
 
-__all__ = ["HAVE_NUMBA", "chord_kappa"]
+__all__ = ["HAVE_NUMBA", "ENABLED", "compiled", "chord_kappa"]
 
-if HAVE_NUMBA:
+#: Use the compiled kernels (where numba is installed). Tests set it to False to run the
+#: numpy fallbacks and compare; the environment variable ``CURVESCAN_NUMBA=0`` sets it too.
+ENABLED = os.environ.get("CURVESCAN_NUMBA", "1") != "0"
+
+
+def compiled() -> bool:
+    """Whether the compiled kernels are used."""
+    return HAVE_NUMBA and ENABLED
+
+
+if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
 
     @njit(parallel=True, cache=True)
-    def _chord_kappa(x, y, s, chain, st_off, half, at):  # pragma: no cover - compiled
+    def _chord_kappa(x, y, s, chain, st_off, half, at, out, scatter):
+        """Chord curvature at stations ``at`` into ``out[t]`` (or ``out[at[t]]`` when
+        ``scatter``)."""
         n = at.shape[0]
-        out = np.empty(n)
         for t in prange(n):
             i = at[t]
+            o = i if scatter else np.int64(t)
             ch = chain[i]
             start = st_off[ch]
             last = st_off[ch + 1] - 1
             k = min(half[ch], (last - start) // 2)
             if k <= 0:
-                out[t] = 0.0
+                out[o] = 0.0
                 continue
             c = min(max(i, start + k), last - k)
             a = c - k
@@ -43,12 +65,404 @@ if HAVE_NUMBA:
             d2y = y[b] - y[c]
             turn = np.arctan2(d1x * d2y - d1y * d2x, d1x * d2x + d1y * d2y)
             span = 0.5 * (s[b] - s[a])
-            out[t] = turn / span if span > 0 else 0.0
+            out[o] = turn / span if span > 0 else 0.0
+
+    @njit(parallel=True, cache=True)
+    def resample_kernel(cx, cy, gm, v_off, base, st_off, step):
+        """Stations of every chain: ``x, y, s, gs`` and the neighbour differences
+        ``dx, dy`` the heading is taken from (see ``resample.resample``)."""
+        n = st_off[-1]
+        x = np.empty(n)
+        y = np.empty(n)
+        s = np.empty(n)
+        gs = np.empty(n)
+        dx = np.empty(n)
+        dy = np.empty(n)
+        for c in prange(st_off.shape[0] - 1):
+            lo = v_off[c]
+            hi = v_off[c + 1] - 2
+            j = lo
+            b = base[c]
+            first = st_off[c]
+            end = st_off[c + 1]
+            for i in range(first, end):
+                si = (i - first) * step[c]
+                g = si + b
+                s[i] = si
+                gs[i] = g
+                # searchsorted(gm, g, "right") - 1, clipped to the chain's segments
+                while j < hi and gm[j + 1] <= g:
+                    j += 1
+                jj = max(j, lo) if lo <= hi else hi
+                span = gm[jj + 1] - gm[jj]
+                t = (g - gm[jj]) / span if span > 0 else 0.0
+                t = min(max(t, 0.0), 1.0) if t == t else t
+                x[i] = cx[jj] * (1.0 - t) + cx[jj + 1] * t
+                y[i] = cy[jj] * (1.0 - t) + cy[jj + 1] * t
+            for i in range(first, end):
+                a = max(i - 1, first)
+                e = min(i + 1, end - 1)
+                dx[i] = x[e] - x[a]
+                dy[i] = y[e] - y[a]
+        return x, y, s, gs, dx, dy
+
+    @njit(parallel=True, cache=True)
+    def median_segment_kernel(measure, v_off):
+        """Upper median of each chain's segment lengths (0 for a chain of one vertex)."""
+        nc = v_off.shape[0] - 1
+        out = np.zeros(nc)
+        for c in prange(nc):
+            m = v_off[c + 1] - v_off[c] - 1
+            if m <= 0:
+                continue
+            seg = np.empty(m)
+            for k in range(m):
+                i = v_off[c] + k
+                seg[k] = measure[i + 1] - measure[i]
+            seg.sort()
+            out[c] = seg[m // 2]
+        return out
+
+    @njit(parallel=True, cache=True)
+    def noise_kernel(cx, cy, measure, v_off, kappa, use_kappa):
+        """Upper median of each chain's absolute vertex offsets from the neighbour chord
+        (sagitta of ``kappa`` removed; 0 where a chain has none; see noise.py)."""
+        nc = v_off.shape[0] - 1
+        med = np.zeros(nc)
+        for c in prange(nc):
+            o0 = v_off[c]
+            m = v_off[c + 1] - o0 - 2
+            if m <= 0:
+                continue
+            vals = np.empty(m)
+            cnt = 0
+            for i in range(o0 + 1, o0 + 1 + m):
+                ax = cx[i - 1]
+                ay = cy[i - 1]
+                chx = cx[i + 1] - ax
+                chy = cy[i + 1] - ay
+                length = np.hypot(chx, chy)
+                if not length > 1e-9:
+                    continue
+                off = (chx * (cy[i] - ay) - chy * (cx[i] - ax)) / length
+                if use_kappa:
+                    h1 = measure[i] - measure[i - 1]
+                    h2 = measure[i + 1] - measure[i]
+                    off = off + kappa[i] * h1 * h2 / 2.0
+                vals[cnt] = abs(off)
+                cnt += 1
+            if cnt > 0:
+                v = np.sort(vals[:cnt])
+                med[c] = v[cnt // 2]
+        return med
+
+    @njit(cache=True)
+    def near_vertex_kernel(gs, gm):
+        """Stations either side of each vertex (``searchsorted(gs, gm)`` clipped to
+        ``1 .. n-1``, and the station before), as a sorted index array."""
+        n = gs.shape[0]
+        mark = np.zeros(n, dtype=np.bool_)
+        j = 0
+        for v in range(gm.shape[0]):
+            g = gm[v]
+            while j < n and gs[j] < g:
+                j += 1
+            k = min(max(j, 1), n - 1)
+            mark[k - 1] = True
+            mark[k] = True
+        return np.flatnonzero(mark)
+
+    @njit(cache=True)
+    def expand_kernel(starts, counts):
+        total = 0
+        for g in range(counts.shape[0]):
+            total += counts[g]
+        idx = np.empty(total, dtype=np.int64)
+        grp = np.empty(total, dtype=np.int64)
+        p = 0
+        for g in range(counts.shape[0]):
+            s0 = starts[g]
+            for k in range(counts[g]):
+                idx[p] = s0 + k
+                grp[p] = g
+                p += 1
+        return idx, grp
+
+    @njit(cache=True)
+    def scatter_min_kernel(out, grp, values):
+        for i in range(grp.shape[0]):
+            g = grp[i]
+            v = values[i]
+            if v < out[g] or v != v:
+                out[g] = v
+
+    @njit(cache=True)
+    def scatter_max_kernel(out, grp, values):
+        for i in range(grp.shape[0]):
+            g = grp[i]
+            v = values[i]
+            if v > out[g] or v != v:
+                out[g] = v
+
+    @njit(cache=True)
+    def stops_around_kernel(idx, grp, centre, stop, n):
+        """Nearest flagged index on each side of each group's centre (see ``_ragged``)."""
+        left = np.full(n, -1, dtype=np.int64)
+        right = np.full(n, np.iinfo(np.int64).max, dtype=np.int64)
+        for t in range(idx.shape[0]):
+            if not stop[t]:
+                continue
+            g = grp[t]
+            i = idx[t]
+            if i > centre[g]:
+                if i < right[g]:
+                    right[g] = i
+            elif i < centre[g]:
+                if i > left[g]:
+                    left[g] = i
+        return left, right
+
+    @njit(cache=True)
+    def _group_order(grp, n):
+        """Positions of each group's members in index order: ``(order, first, counts)``."""
+        counts = np.zeros(n, dtype=np.int64)
+        for i in range(grp.shape[0]):
+            counts[grp[i]] += 1
+        first = np.zeros(n, dtype=np.int64)
+        acc = 0
+        for g in range(n):
+            first[g] = acc
+            acc += counts[g]
+        fill = first.copy()
+        order = np.empty(grp.shape[0], dtype=np.int64)
+        for i in range(grp.shape[0]):
+            g = grp[i]
+            order[fill[g]] = i
+            fill[g] += 1
+        return order, first, counts
+
+    @njit(cache=True)
+    def _before(k1, i1, k2, i2):
+        """Order of a stable sort by key (NaN last): by key, then by position."""
+        if k1 != k1:
+            return k2 != k2 and i1 < i2
+        if k2 != k2:
+            return True
+        return k1 < k2 or (k1 == k2 and i1 < i2)
+
+    @njit(cache=True)
+    def _select(key, pos, rank):
+        """Reorder ``key``/``pos`` in place so that element ``rank`` is where a stable sort
+        by key would put it (quickselect; the pairs are distinct, so it is unique)."""
+        lo = 0
+        hi = key.shape[0] - 1
+        while lo < hi:
+            mid = (lo + hi) // 2
+            key[mid], key[hi] = key[hi], key[mid]
+            pos[mid], pos[hi] = pos[hi], pos[mid]
+            pk = key[hi]
+            pp = pos[hi]
+            store = lo
+            for i in range(lo, hi):
+                if _before(key[i], pos[i], pk, pp):
+                    key[i], key[store] = key[store], key[i]
+                    pos[i], pos[store] = pos[store], pos[i]
+                    store += 1
+            key[store], key[hi] = key[hi], key[store]
+            pos[store], pos[hi] = pos[hi], pos[store]
+            if store == rank:
+                return
+            if store < rank:
+                lo = store + 1
+            else:
+                hi = store - 1
+
+    @njit(cache=True)
+    def group_quantile_kernel(values, key, grp, n, q):
+        """Within each group, the value at rank ``floor(q (count - 1))`` in a stable sort
+        by ``key`` (the ordering of ``_ragged.group_quantile``)."""
+        out = np.full(n, np.nan)
+        order, first, counts = _group_order(grp, n)
+        k = np.empty(grp.shape[0])
+        for i in range(grp.shape[0]):
+            k[i] = key[order[i]]
+        for g in range(n):
+            m = counts[g]
+            if m == 0:
+                continue
+            f = first[g]
+            rank = int(np.floor(q * (m - 1)))
+            _select(k[f:f + m], order[f:f + m], rank)
+            out[g] = values[order[f + rank]]
+        return out
+
+    @njit(cache=True)
+    def group_argmax_kernel(values, grp, n):
+        """Last position of each group in a lexsort by (group, value): the largest value,
+        NaN above all, the later index on ties; -1 for an empty group."""
+        out = np.full(n, -1, dtype=np.int64)
+        nan = np.zeros(n, dtype=np.bool_)
+        for i in range(grp.shape[0]):
+            g = grp[i]
+            v = values[i]
+            b = out[g]
+            if v != v:
+                out[g] = i
+                nan[g] = True
+            elif b < 0 or (not nan[g] and v >= values[b]):
+                out[g] = i
+        return out
+
+    @njit(cache=True)
+    def running_turn_kernel(k, s, chain):
+        """``[0, cumsum(k * step)]`` with the step zero across chain ends (see
+        ``circular.cumulative_turn``)."""
+        n = s.shape[0]
+        out = np.empty(n + 1)
+        out[0] = 0.0
+        acc = 0.0
+        for i in range(n):
+            step = 0.0
+            if i + 1 < n and chain[i + 1] == chain[i]:
+                step = s[i + 1] - s[i]
+            acc = acc + k[i] * step
+            out[i + 1] = acc
+        return out
+
+    @njit(cache=True)
+    def label_runs_kernel(kappa, chain, kappa_off):
+        """Maximal runs of one label (sign of ``kappa`` where ``|kappa| >= kappa_off``,
+        else 0) within a chain: ``starts, ends`` (inclusive) and the label (int8)."""
+        n = kappa.shape[0]
+        starts = np.empty(n, dtype=np.int64)
+        ends = np.empty(n, dtype=np.int64)
+        lab = np.empty(n, dtype=np.int8)
+        r = -1
+        prev = 0
+        for i in range(n):
+            k = kappa[i]
+            lb = 0
+            if abs(k) >= kappa_off:
+                lb = 1 if k > 0 else (-1 if k < 0 else 0)
+            if i == 0 or lb != prev or chain[i] != chain[i - 1]:
+                r += 1
+                starts[r] = i
+                lab[r] = lb
+            ends[r] = i
+            prev = lb
+        return starts[:r + 1].copy(), ends[:r + 1].copy(), lab[:r + 1].copy()
+
+    @njit(cache=True)
+    def range_max_abs_kernel(values, starts, ends):
+        """Largest ``|values|`` over each inclusive range (NaN if one is NaN)."""
+        out = np.full(starts.shape[0], -np.inf)
+        for g in range(starts.shape[0]):
+            m = out[g]
+            for i in range(starts[g], ends[g] + 1):
+                v = abs(values[i])
+                if v > m or v != v:
+                    m = v
+            out[g] = m
+        return out
+
+    @njit(cache=True)
+    def moment_sums_kernel(x, y, group, n_groups):
+        """Counts, coordinate sums, and sums of ``XX, YY, XY, XZ, YZ, ZZ`` of the points
+        centred on their group's mean ``sum / count`` (``Z = X^2 + Y^2``), in index order."""
+        cnt = np.zeros(n_groups)
+        sx = np.zeros(n_groups)
+        sy = np.zeros(n_groups)
+        for i in range(group.shape[0]):
+            g = group[i]
+            cnt[g] += 1.0
+            sx[g] += x[i]
+            sy[g] += y[i]
+        mx = np.full(n_groups, np.nan)
+        my = np.full(n_groups, np.nan)
+        for g in range(n_groups):
+            if cnt[g] > 0:
+                mx[g] = sx[g] / cnt[g]
+                my[g] = sy[g] / cnt[g]
+        m = np.zeros((6, n_groups))
+        for i in range(group.shape[0]):
+            g = group[i]
+            X = x[i] - mx[g]
+            Y = y[i] - my[g]
+            Z = X * X + Y * Y
+            m[0, g] += X * X
+            m[1, g] += Y * Y
+            m[2, g] += X * Y
+            m[3, g] += X * Z
+            m[4, g] += Y * Z
+            m[5, g] += Z * Z
+        return cnt, sx, sy, m
+
+    @njit(cache=True)
+    def normal_kernel(X, Y, group, active, a, b, r, n_groups):
+        """Gauss-Newton normal equations ``J^T J``, ``J^T d`` of the circle distance over the
+        points of active groups (see ``circlefit._normal``)."""
+        jtj = np.zeros((n_groups, 3, 3))
+        jtd = np.zeros((n_groups, 3))
+        for i in range(group.shape[0]):
+            g = group[i]
+            if not active[g]:
+                continue
+            u = X[i] - a[g]
+            v = Y[i] - b[g]
+            rho = np.hypot(u, v)
+            if not rho > 0:
+                rho = 1e-12
+            ju = -u / rho
+            jv = -v / rho
+            jw = -1.0
+            d = rho - r[g]
+            jtj[g, 0, 0] += ju * ju
+            jtj[g, 0, 1] += ju * jv
+            jtj[g, 0, 2] += ju * jw
+            jtj[g, 1, 1] += jv * jv
+            jtj[g, 1, 2] += jv * jw
+            jtj[g, 2, 2] += jw * jw
+            jtd[g, 0] += ju * d
+            jtd[g, 1] += jv * d
+            jtd[g, 2] += jw * d
+        for g in range(n_groups):
+            jtj[g, 1, 0] = jtj[g, 0, 1]
+            jtj[g, 2, 0] = jtj[g, 0, 2]
+            jtj[g, 2, 1] = jtj[g, 1, 2]
+        return jtj, jtd
+
+    @njit(cache=True)
+    def circle_gap_kernel(coords, idx, grp, cx, cy, r):
+        """``|distance from the centre - radius|`` of vertices ``idx`` from their group's
+        circle (see ``circlefit.circle_gaps``)."""
+        out = np.empty(idx.shape[0])
+        for t in range(idx.shape[0]):
+            g = grp[t]
+            i = idx[t]
+            out[t] = abs(np.hypot(coords[i, 0] - cx[g], coords[i, 1] - cy[g]) - r[g])
+        return out
+
+    @njit(cache=True)
+    def cost_kernel(X, Y, group, active, a, b, r, n_groups):
+        """Sum of squared distances from the circles over the points of active groups."""
+        out = np.zeros(n_groups)
+        for i in range(group.shape[0]):
+            g = group[i]
+            if not active[g]:
+                continue
+            d = np.hypot(X[i] - a[g], Y[i] - b[g]) - r[g]
+            out[g] += d * d
         return out
 
 
-def chord_kappa(xy, s, chain, st_off, half, at):
-    """Compiled chord curvature at stations ``at`` (see ``resample.chord_curvature``)."""
-    return _chord_kappa(np.ascontiguousarray(xy[:, 0]), np.ascontiguousarray(xy[:, 1]),
-                        s, chain.astype(np.int64), st_off.astype(np.int64),
-                        np.asarray(half, dtype=np.int64), np.asarray(at, dtype=np.int64))
+def chord_kappa(x, y, s, chain, st_off, half, at, out=None):
+    """Compiled chord curvature at stations ``at`` (see ``resample.chord_curvature``);
+    with ``out`` (one value per station) written to ``out[at]`` instead."""
+    at = np.asarray(at, dtype=np.int64)
+    scatter = out is not None
+    if not scatter:
+        out = np.empty(len(at))
+    _chord_kappa(np.ascontiguousarray(x), np.ascontiguousarray(y), s,
+                 chain.astype(np.int64, copy=False), st_off.astype(np.int64, copy=False),
+                 np.asarray(half, dtype=np.int64), at, out, scatter)
+    return out

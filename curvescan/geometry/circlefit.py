@@ -21,7 +21,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["CircleFit", "hyper_fit", "geometric_fit", "fit_circles"]
+from . import _kernels as kn
+
+__all__ = ["CircleFit", "hyper_fit", "geometric_fit", "fit_circles", "circle_gaps"]
 
 
 @dataclass
@@ -49,6 +51,23 @@ def _centre(x, y, group, n_groups):
     return n, mx, my
 
 
+def _moments(x, y, group, n_groups):
+    """Count, mean and the centred sums ``XX, YY, XY, XZ, YZ, ZZ`` (rows) of each group."""
+    if kn.compiled():
+        cnt, sx, sy, sums = kn.moment_sums_kernel(np.asarray(x, dtype=float),
+                                                  np.asarray(y, dtype=float),
+                                                  np.asarray(group, dtype=np.int64), n_groups)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return cnt, sx / cnt, sy / cnt, sums
+    n, mx, my = _centre(x, y, group, n_groups)
+    X = x - mx[group]
+    Y = y - my[group]
+    Z = X * X + Y * Y
+    sums = np.stack([_sums(group, v, n_groups) for v in (X * X, Y * Y, X * Y, X * Z, Y * Z,
+                                                          Z * Z)])
+    return n, mx, my, sums
+
+
 def hyper_fit(x: np.ndarray, y: np.ndarray, group: np.ndarray, n_groups: int):
     """Algebraic hyper fit per group.
 
@@ -66,16 +85,9 @@ def hyper_fit(x: np.ndarray, y: np.ndarray, group: np.ndarray, n_groups: int):
     cx, cy, radius : ndarray
         NaN for groups with fewer than three points or collinear points.
     """
-    n, mx, my = _centre(x, y, group, n_groups)
-    X = x - mx[group]
-    Y = y - my[group]
-    Z = X * X + Y * Y
     with np.errstate(invalid="ignore", divide="ignore"):
-        def mean(v):
-            return _sums(group, v, n_groups) / n
-
-        Mxx, Myy, Mxy = mean(X * X), mean(Y * Y), mean(X * Y)
-        Mxz, Myz, Mzz = mean(X * Z), mean(Y * Z), mean(Z * Z)
+        n, mx, my, sums = _moments(x, y, group, n_groups)
+        Mxx, Myy, Mxy, Mxz, Myz, Mzz = sums / n
         Mz = Mxx + Myy
         cov = Mxx * Myy - Mxy * Mxy
         var_z = Mzz - Mz * Mz
@@ -115,7 +127,12 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
     standard error of the radius from the covariance ``s^2 (J^T J)^-1`` with
     ``s^2 = RSS / (n - 3)``.
     """
-    n, mx, my = _centre(x, y, group, n_groups)
+    use = kn.compiled()
+    if use:
+        group = np.asarray(group, dtype=np.int64)
+        n, mx, my, _ = _moments(x, y, group, n_groups)
+    else:
+        n, mx, my = _centre(x, y, group, n_groups)
     X = x - mx[group]
     Y = y - my[group]
     a = cx0 - mx
@@ -124,39 +141,56 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
     live = np.isfinite(a) & np.isfinite(b) & np.isfinite(r) & (n >= 3)
     a, b, r = np.where(live, a, 0.0), np.where(live, b, 0.0), np.where(live, r, 1.0)
     lam = np.full(n_groups, 1e-6)
-    cost = _cost(X, Y, group, n_groups, a, b, r)
+    everyone = np.ones(n_groups, dtype=bool)
+    cost = _cost(X, Y, group, n_groups, a, b, r, everyone)
     active = live.copy()
     eye = np.eye(3)
     for _ in range(iterations):
-        pts = np.flatnonzero(active[group])
-        if pts.size == 0:
+        # live groups have points, so no active group means no points to fit
+        act = np.flatnonzero(active)
+        if act.size == 0:
             break
-        gX, gY, gg = X[pts], Y[pts], group[pts]
-        JTJ, JTd = _normal(gX, gY, gg, n_groups, a, b, r)
+        if use:
+            gX, gY, gg = X, Y, group
+            JTJ, JTd = kn.normal_kernel(X, Y, group, active, a, b, r, n_groups)
+        else:
+            pts = np.flatnonzero(active[group])
+            gX, gY, gg = X[pts], Y[pts], group[pts]
+            JTJ, JTd = _normal(gX, gY, gg, n_groups, a, b, r)
+        # each group's 3x3 system is solved on its own: solving only the active ones
+        # gives them the same steps
+        JTJ, JTd = JTJ[act], JTd[act]
         scale = np.trace(JTJ, axis1=1, axis2=2)[:, None, None] + 1e-12
+        step = np.zeros((n_groups, 3))
         with np.errstate(invalid="ignore", over="ignore"):
             try:
-                step = np.linalg.solve(JTJ + lam[:, None, None] * eye * scale,
-                                       -JTd[:, :, None])[:, :, 0]
+                step[act] = np.linalg.solve(JTJ + lam[act, None, None] * eye * scale,
+                                            -JTd[:, :, None])[:, :, 0]
             except np.linalg.LinAlgError:
-                step = np.zeros((n_groups, 3))
+                step[:] = 0.0
         step = np.where(np.isfinite(step) & active[:, None], step, 0.0)
         na, nb, nr = a + step[:, 0], b + step[:, 1], r + step[:, 2]
         new_cost = cost.copy()
-        new_cost[active] = _cost(gX, gY, gg, n_groups, na, nb, nr)[active]
+        new_cost[active] = _cost(gX, gY, gg, n_groups, na, nb, nr, active)[active]
         better = active & (new_cost <= cost)
         a, b, r = np.where(better, na, a), np.where(better, nb, b), np.where(better, nr, r)
         cost = np.where(better, new_cost, cost)
         lam = np.where(better, lam * 0.3, lam * 10.0)
         # a group is done when its step is negligible or damping has given up
-        tiny = np.abs(step).max(axis=1) <= 1e-10 * (np.abs(r) + 1.0)
+        big = np.maximum(np.maximum(np.abs(step[:, 0]), np.abs(step[:, 1])), np.abs(step[:, 2]))
+        tiny = big <= 1e-10 * (np.abs(r) + 1.0)
         active &= ~(tiny | (lam > 1e6))
-    JTJ, _ = _normal(X, Y, group, n_groups, a, b, r)
+    if use:
+        JTJ, _ = kn.normal_kernel(X, Y, group, everyone, a, b, r, n_groups)
+    else:
+        JTJ, _ = _normal(X, Y, group, n_groups, a, b, r)
     dof = n - 3
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = np.where(dof > 0, cost / np.maximum(dof, 1), np.nan)
-        cov = np.linalg.pinv(JTJ)
-        unit = np.sqrt(np.maximum(cov[:, 2, 2], 0.0))
+        c22 = np.full(n_groups, np.nan)  # groups that were never fitted stay NaN
+        if live.any():
+            c22[live] = np.linalg.pinv(JTJ[live])[:, 2, 2]
+        unit = np.sqrt(np.maximum(c22, 0.0))
         se = unit * np.sqrt(s2)
         rmse = np.sqrt(cost / n)
     bad = ~live
@@ -171,7 +205,11 @@ def _dist(X, Y, group, a, b):
     return np.hypot(X - a[group], Y - b[group])
 
 
-def _cost(X, Y, group, n_groups, a, b, r):
+def _cost(X, Y, group, n_groups, a, b, r, active):
+    """Sum of squared distances from the circle, per group (where ``active``)."""
+    if kn.compiled():
+        return kn.cost_kernel(X, Y, np.asarray(group, dtype=np.int64), active, a, b, r,
+                              n_groups)
     d = _dist(X, Y, group, a, b) - r[group]
     return _sums(group, d * d, n_groups)
 
@@ -205,8 +243,18 @@ def fit_circles(x: np.ndarray, y: np.ndarray, group: np.ndarray, n_groups: int,
         return geometric_fit(x, y, group, n_groups, cx, cy, r)
     n = np.bincount(group, minlength=n_groups)
     with np.errstate(invalid="ignore", divide="ignore"):
-        d = np.hypot(x - cx[group], y - cy[group]) - r[group]
-        rmse = np.sqrt(_sums(group, d * d, n_groups) / n)
+        rss = _cost(x, y, group, n_groups, cx, cy, r, np.ones(n_groups, dtype=bool))
+        rmse = np.sqrt(rss / n)
     nan = np.full(n_groups, np.nan)
     return CircleFit(cx=cx, cy=cy, radius=r, radius_se=nan, rmse=rmse, n=n.astype(int),
                      radius_sd_unit=nan.copy())
+
+
+def circle_gaps(coords: np.ndarray, idx: np.ndarray, grp: np.ndarray, fit: CircleFit) -> np.ndarray:
+    """Distance (m) of the vertices ``coords[idx]`` from the circle of their group ``grp``."""
+    if kn.compiled():
+        return kn.circle_gap_kernel(np.ascontiguousarray(coords, dtype=float),
+                                    np.asarray(idx, dtype=np.int64),
+                                    np.asarray(grp, dtype=np.int64), fit.cx, fit.cy, fit.radius)
+    return np.abs(np.hypot(coords[idx, 0] - fit.cx[grp], coords[idx, 1] - fit.cy[grp])
+                  - fit.radius[grp])

@@ -22,8 +22,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._ragged import expand, find, group_argmax, group_quantile, stops_around
-from .circlefit import CircleFit, fit_circles
+from . import _kernels as kn
+from ._ragged import (expand, find, group_argmax, group_quantile, scatter_max, scatter_min,
+                      stops_around)
+from .circlefit import CircleFit, circle_gaps, fit_circles
 from .compound import split_compound
 
 __all__ = ["Profile", "circular_parts"]
@@ -105,8 +107,8 @@ def _core(prof: Profile, pf: np.ndarray, pl: np.ndarray, scale: np.ndarray):
     inside = lab == target[grp]
     first = np.full(n, np.iinfo(np.int64).max)
     last = np.full(n, -1)
-    np.minimum.at(first, grp[inside], idx[inside])
-    np.maximum.at(last, grp[inside], idx[inside])
+    scatter_min(first, grp[inside], idx[inside])
+    scatter_max(last, grp[inside], idx[inside])
     return first, last
 
 
@@ -172,8 +174,7 @@ def _consensus(prof: Profile, fit: CircleFit, centre: np.ndarray, vlo, vhi, tol)
     """
     n = len(centre)
     idx, grp = expand(vlo, vhi - vlo)
-    d = np.abs(np.hypot(prof.coords[idx, 0] - fit.cx[grp], prof.coords[idx, 1] - fit.cy[grp])
-               - fit.radius[grp])
+    d = circle_gaps(prof.coords, idx, grp, fit)
     bad = ~(d <= tol[grp])
     same_next = np.r_[grp[1:] == grp[:-1], False]
     same_prev = np.r_[False, grp[1:] == grp[:-1]]
@@ -387,6 +388,10 @@ def cumulative_turn(prof: Profile, scale: int) -> np.ndarray:
     """Running heading change (rad) along stations at one curvature scale, chain by chain."""
     if scale in prof.turn_cache:
         return prof.turn_cache[scale]
+    if kn.compiled():
+        out = kn.running_turn_kernel(prof.K[scale], prof.s, prof.chain)
+        prof.turn_cache[scale] = out
+        return out
     step = np.r_[np.diff(prof.s), 0.0]
     step[np.r_[prof.chain[1:] != prof.chain[:-1], True]] = 0.0
     out = np.concatenate([[0.0], np.cumsum(prof.K[scale] * step)])

@@ -13,6 +13,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from . import _kernels as kn
+
 __all__ = ["vertex_noise", "NOISE_FLOOR_M"]
 
 #: Smallest noise assumed (m): coordinates are rarely better than this.
@@ -24,7 +26,8 @@ _SCALE = 1.0 / (0.6745 * np.sqrt(1.5))
 
 
 def vertex_noise(coords: np.ndarray, offsets: np.ndarray, measure: np.ndarray,
-                 curvature_at_vertex: np.ndarray | None = None) -> np.ndarray:
+                 curvature_at_vertex: np.ndarray | None = None,
+                 use_compiled: bool = True) -> np.ndarray:
     """Noise standard deviation (m) of each chain's vertices.
 
     Parameters
@@ -38,6 +41,9 @@ def vertex_noise(coords: np.ndarray, offsets: np.ndarray, measure: np.ndarray,
     curvature_at_vertex : ndarray (n,), optional
         Smoothed curvature at each vertex (1/m), to remove the sagitta of real curves.
 
+    use_compiled : bool
+        Use the compiled kernel where numba is installed (same values).
+
     Returns
     -------
     ndarray (n_chains,)
@@ -47,6 +53,14 @@ def vertex_noise(coords: np.ndarray, offsets: np.ndarray, measure: np.ndarray,
     n = len(coords)
     if n < 3:
         return np.full(n_chains, NOISE_FLOOR_M)
+    if use_compiled and kn.compiled():
+        kappa = curvature_at_vertex
+        med = kn.noise_kernel(
+            np.ascontiguousarray(coords[:, 0]), np.ascontiguousarray(coords[:, 1]),
+            np.asarray(measure, dtype=float), np.asarray(offsets, dtype=np.int64),
+            np.zeros(1) if kappa is None else np.asarray(kappa, dtype=float),
+            kappa is not None)
+        return np.maximum(med * _SCALE, NOISE_FLOOR_M)
     chain = np.repeat(np.arange(n_chains), np.diff(offsets))
     interior = np.zeros(n, dtype=bool)
     interior[1:-1] = (chain[1:-1] == chain[:-2]) & (chain[1:-1] == chain[2:])

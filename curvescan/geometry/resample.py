@@ -8,10 +8,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._kernels import HAVE_NUMBA, chord_kappa
+from . import _kernels as kn
 from .stations import Stations
 
-__all__ = ["global_measure", "interpolate", "resample", "chord_curvature", "station_heading"]
+__all__ = ["global_measure", "interpolate", "resample", "resample_stations", "chord_curvature",
+           "station_heading"]
 
 
 def global_measure(measure: np.ndarray, offsets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -43,21 +44,44 @@ def resample(coords: np.ndarray, measure: np.ndarray, offsets: np.ndarray,
 
     Returns ``(xy, s, chain, station_offsets)``.
     """
+    st = resample_stations(coords, measure, offsets, spacing_m)
+    return np.column_stack([st["x"], st["y"]]), st["s"], st["chain"], st["st_off"]
+
+
+def resample_stations(coords: np.ndarray, measure: np.ndarray, offsets: np.ndarray,
+                      spacing_m: float, use_compiled: bool = True) -> dict[str, np.ndarray]:
+    """:func:`resample` as flat arrays, with what the geometry stage reads next.
+
+    Returns a dict: ``x``, ``y`` (station coordinates), ``s`` (measure along the chain),
+    ``gs`` (global measure, ``s + base[chain]``), ``chain``, ``st_off`` (station offsets),
+    ``heading`` (see :func:`station_heading`), ``gm`` and ``base`` (see
+    :func:`global_measure`).
+    """
     gm, base = global_measure(measure, offsets)
     lengths = measure[offsets[1:] - 1]
     count = np.maximum(np.ceil(lengths / spacing_m).astype(np.int64) + 1, 2)
     step = lengths / (count - 1)
     chain = np.repeat(np.arange(len(lengths)), count)
     st_off = np.concatenate([[0], np.cumsum(count)])
-    k = np.arange(st_off[-1]) - st_off[chain]
-    s = k * step[chain]
-    xy = interpolate(coords, gm, offsets, chain, s + base[chain])
-    return xy, s, chain, st_off
+    if use_compiled and kn.compiled():
+        x, y, s, gs, dx, dy = kn.resample_kernel(
+            np.ascontiguousarray(coords[:, 0]), np.ascontiguousarray(coords[:, 1]), gm,
+            offsets.astype(np.int64, copy=False), base, st_off, step)
+        heading = np.arctan2(dy, dx)
+    else:
+        k = np.arange(st_off[-1]) - st_off[chain]
+        s = k * step[chain]
+        gs = s + base[chain]
+        xy = interpolate(coords, gm, offsets, chain, gs)
+        x, y = xy[:, 0].copy(), xy[:, 1].copy()
+        heading = station_heading(xy, chain, st_off)
+    return {"x": x, "y": y, "s": s, "gs": gs, "chain": chain, "st_off": st_off,
+            "heading": heading, "gm": gm, "base": base}
 
 
 def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np.ndarray,
                     half_window: np.ndarray, at: np.ndarray | None = None,
-                    use_compiled: bool = True) -> np.ndarray:
+                    use_compiled: bool = True, out: np.ndarray | None = None) -> np.ndarray:
     """Curvature from the heading change between two chords of ``half_window`` stations.
 
     At station ``j`` the chords are ``j-k -> j`` and ``j -> j+k``; curvature is the angle
@@ -68,6 +92,8 @@ def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np
 
     Parameters
     ----------
+    xy : ndarray (n, 2) or tuple of two ndarrays
+        Station coordinates (or ``(x, y)``).
     half_window : ndarray of int
         Half window in stations, per chain.
     at : ndarray of int, optional
@@ -75,26 +101,32 @@ def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np
     use_compiled : bool
         Use the compiled kernel where numba is installed (the numpy form gives the same
         values).
+    out : ndarray, optional
+        One value per station: the curvature is written to ``out[at]`` and ``out`` returned.
 
     Returns
     -------
     ndarray
         Signed curvature (1/m, + left) at ``at`` (or at every station).
     """
+    x, y = (xy[:, 0], xy[:, 1]) if isinstance(xy, np.ndarray) else xy
     idx = np.arange(len(s)) if at is None else np.asarray(at, dtype=np.int64)
-    if use_compiled and HAVE_NUMBA:
-        return chord_kappa(xy, s, chain, st_off, half_window, idx)
+    if use_compiled and kn.compiled():
+        return kn.chord_kappa(x, y, s, chain, st_off, half_window, idx, out)
+    if out is not None:
+        out[idx] = chord_curvature(xy, s, chain, st_off, half_window, idx, use_compiled=False)
+        return out
     ch = chain[idx]
     start = st_off[ch]
     last = st_off[ch + 1] - 1
     k = np.minimum(half_window[ch], (last - start) // 2)
     c = np.clip(idx, start + k, last - k)
     a, b = c - k, c + k
-    d1 = xy[c] - xy[a]
-    d2 = xy[b] - xy[c]
+    d1x, d1y = x[c] - x[a], y[c] - y[a]
+    d2x, d2y = x[b] - x[c], y[b] - y[c]
     # signed angle between the chords: one atan2 of cross and dot
-    cross = d1[:, 0] * d2[:, 1] - d1[:, 1] * d2[:, 0]
-    dot = d1[:, 0] * d2[:, 0] + d1[:, 1] * d2[:, 1]
+    cross = d1x * d2y - d1y * d2x
+    dot = d1x * d2x + d1y * d2y
     turn = np.arctan2(cross, dot)
     span = 0.5 * (s[b] - s[a])
     return np.where((k > 0) & (span > 0), turn / np.where(span > 0, span, 1.0), 0.0)
@@ -110,6 +142,7 @@ def station_heading(xy: np.ndarray, chain: np.ndarray, st_off: np.ndarray) -> np
 
 
 def make_stations(xy, s, chain, st_off, kappa, heading) -> Stations:
-    """Bundle station arrays."""
-    return Stations(x=xy[:, 0].copy(), y=xy[:, 1].copy(), s=s, heading=heading,
-                    curvature=kappa, chain=chain, offsets=st_off)
+    """Bundle station arrays (``xy`` an (n, 2) array or a tuple ``(x, y)`` kept as is)."""
+    x, y = (xy[:, 0].copy(), xy[:, 1].copy()) if isinstance(xy, np.ndarray) else xy
+    return Stations(x=x, y=y, s=s, heading=heading, curvature=kappa, chain=chain,
+                    offsets=st_off)

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from . import _kernels as kn
 from ._ragged import expand
 
 __all__ = ["find_runs"]
@@ -38,9 +39,12 @@ def find_runs(kappa: np.ndarray, s: np.ndarray, chain: np.ndarray, *, kappa_on: 
     if len(kappa) == 0:
         empty = np.zeros(0, dtype=np.int64)
         return empty, empty
-    label = np.where(np.abs(kappa) >= kappa_off, np.sign(kappa), 0).astype(np.int8)
-    starts, ends = _runs(label, chain)
-    lab = label[starts]
+    if kn.compiled():
+        starts, ends, lab = kn.label_runs_kernel(kappa, chain, kappa_off)
+    else:
+        label = np.where(np.abs(kappa) >= kappa_off, np.sign(kappa), 0).astype(np.int8)
+        starts, ends = _runs(label, chain)
+        lab = label[starts]
     # merge: a short zero run between two runs of the same sign on the same chain
     gap_len = s[ends] - s[starts]
     inner = np.zeros(len(starts), dtype=bool)
@@ -54,19 +58,26 @@ def find_runs(kappa: np.ndarray, s: np.ndarray, chain: np.ndarray, *, kappa_on: 
         )
     lab = lab.copy()
     lab[inner] = lab[np.flatnonzero(inner) - 1]
-    merged = np.repeat(lab, ends - starts + 1)
-    starts, ends = _runs(merged, chain)
-    lab = merged[starts]
+    # runs of equal label on one chain join
+    brk = np.ones(len(starts), dtype=bool)
+    brk[1:] = (lab[1:] != lab[:-1]) | (chain[starts[1:]] != chain[ends[:-1]])
+    head = np.flatnonzero(brk)
+    starts, ends, lab = starts[head], ends[np.r_[head[1:], len(brk)] - 1], lab[head]
     keep = lab != 0
     starts, ends = starts[keep], ends[keep]
     if len(starts) == 0:
         return starts, ends
-    step = np.zeros(len(s))
-    step[1:] = np.diff(s)
-    step[np.r_[True, chain[1:] != chain[:-1]]] = 0.0
-    csum = np.cumsum(kappa * np.r_[step[1:], 0.0])
-    defl = np.abs(csum[ends] - np.where(starts > 0, csum[starts - 1], 0.0))
-    peak = _group_max(np.abs(kappa), starts, ends)
+    if kn.compiled():
+        csum = kn.running_turn_kernel(kappa, s, chain)  # [0, cumsum(kappa * step)]
+        defl = np.abs(csum[ends + 1] - csum[starts])
+        peak = kn.range_max_abs_kernel(kappa, starts, ends)
+    else:
+        step = np.zeros(len(s))
+        step[1:] = np.diff(s)
+        step[np.r_[True, chain[1:] != chain[:-1]]] = 0.0
+        csum = np.cumsum(kappa * np.r_[step[1:], 0.0])
+        defl = np.abs(csum[ends] - np.where(starts > 0, csum[starts - 1], 0.0))
+        peak = _group_max(np.abs(kappa), starts, ends)
     length = s[ends] - s[starts]
     ok = (peak >= kappa_on) & (defl >= min_deflection_rad) & (length >= min_length_m)
     return starts[ok], ends[ok]

@@ -1,0 +1,209 @@
+"""The compiled (numba) kernels of the geometry stage give exactly the numpy fallbacks' values.
+
+Each kernel replaces a numpy form that stays in place for installs without numba; both
+must agree bit for bit (the compiled chord curvature, which takes ``atan2`` from the C
+library, only to round-off: see test_geometry).
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from curvescan.config import make_config
+from curvescan.errors import DataQualityWarning
+from curvescan.geometry import _kernels as kn
+from curvescan.geometry import _ragged, circlefit, noise, resample
+from curvescan.prepare import prepare
+from curvescan.read import load
+from curvescan.synthetic import vertices
+
+from .conftest import UTM, frame_from_lines, simple_curve
+
+pytestmark = pytest.mark.skipif(not kn.HAVE_NUMBA, reason="numba not installed")
+
+
+def _both(monkeypatch, fn):
+    """``fn()`` with the compiled kernels and with the numpy fallbacks."""
+    monkeypatch.setattr(kn, "ENABLED", True)
+    a = fn()
+    monkeypatch.setattr(kn, "ENABLED", False)
+    b = fn()
+    monkeypatch.setattr(kn, "ENABLED", True)
+    return a, b
+
+
+def _equal(a, b):
+    if isinstance(a, tuple | list):
+        assert len(a) == len(b)
+        for u, v in zip(a, b):
+            _equal(u, v)
+    elif isinstance(a, dict):
+        assert a.keys() == b.keys()
+        for k in a:
+            _equal(a[k], b[k])
+    else:
+        assert np.asarray(a).dtype == np.asarray(b).dtype
+        np.testing.assert_array_equal(a, b, strict=True)
+
+
+def _network():
+    """Noisy and clean curves, a reverse curve, a two-vertex line, repeated vertices."""
+    lines = []
+    for k, (r, defl) in enumerate([(60.0, 70.0), (250.0, 40.0), (900.0, 20.0)]):
+        al = simple_curve(r, defl, spiral_m=0.2 * r, tangent_m=150.0, left=k % 2 == 0)
+        xy, _ = vertices(al, np.random.default_rng(k), jitter=(3.0, 20.0), noise_m=0.1 * k)
+        lines.append(xy + [4000.0 * k, 0.0])
+    lines.append(np.array([[0.0, -500.0], [80.0, -500.0]]))
+    lines.append(np.array([[0.0, -900.0], [10.0, -900.0], [10.0, -900.0], [20.0, -901.0],
+                           [30.0, -903.0], [40.0, -906.0]]))
+    return lines
+
+
+def _chains():
+    cfg = make_config(crs=UTM)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataQualityWarning)
+        return prepare(load(frame_from_lines(_network()), cfg), cfg), cfg
+
+
+def test_scan_geometry_is_the_same_with_and_without_numba(monkeypatch):
+    import curvescan.geometry as geometry
+
+    chains, cfg = _chains()
+    # the chord curvature differs in the last bit (atan2): compile it in both runs
+    chord = geometry.chord_curvature
+
+    def same_chord(*args, **kwargs):
+        with monkeypatch.context() as m:
+            m.setattr(kn, "ENABLED", True)
+            return chord(*args, **kwargs)
+
+    monkeypatch.setattr(geometry, "chord_curvature", same_chord)
+    a, b = _both(monkeypatch, lambda: geometry.find_curves(chains, cfg))
+    assert len(a.curves) >= 3
+    pd.testing.assert_frame_equal(a.curves, b.curves, check_exact=True)
+    pd.testing.assert_frame_equal(a.segments, b.segments, check_exact=True)
+    for k in ("x", "y", "s", "heading", "curvature", "chain", "offsets"):
+        _equal(getattr(a.stations, k), getattr(b.stations, k))
+
+
+def test_resample_and_noise_kernels(monkeypatch):
+    chains, _ = _chains()
+    c, m, off = chains.coords, chains.measure, chains.offsets
+    _equal(*_both(monkeypatch, lambda: resample.resample_stations(c, m, off, 3.0)))
+    kappa = np.random.default_rng(3).normal(0, 0.01, len(c))
+    sigma = _both(monkeypatch, lambda: noise.vertex_noise(c, off, m))
+    _equal(*sigma)
+    assert (sigma[0] > noise.NOISE_FLOOR_M).any()
+    _equal(*_both(monkeypatch, lambda: noise.vertex_noise(c, off, m, kappa)))
+
+
+def test_chain_half_windows_and_near_vertices(monkeypatch):
+    import curvescan.geometry as geometry
+
+    chains, _ = _chains()
+    _equal(*_both(monkeypatch, lambda: geometry._chain_half_windows(chains, 4.0, 40.0)))
+    st = resample.resample_stations(chains.coords, chains.measure, chains.offsets, 4.0)
+    _equal(*_both(monkeypatch, lambda: geometry._near_vertices(st["gs"], st["gm"])))
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_group_helpers(monkeypatch, seed):
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(1, 40))
+    grp = rng.integers(0, n, int(rng.integers(0, 500)))
+    if seed % 2:
+        grp = np.sort(grp)
+    # many ties, and a few NaN
+    values = rng.choice([0.0, 1.0, 2.5, 1e-300, 7.0], len(grp)) + (seed % 3) * rng.random(len(grp))
+    if seed > 2 and len(grp):
+        values[rng.integers(0, len(grp), 3)] = np.nan
+    for q in (0.0, 0.5, 0.9, 1.0):
+        _equal(*_both(monkeypatch, lambda: _ragged.group_quantile(values, grp, n, q)))
+    _equal(*_both(monkeypatch, lambda: _ragged.group_argmax(values, grp, n)))
+    counts = rng.integers(-1, 5, n)
+    starts = rng.integers(0, 100, n)
+    _equal(*_both(monkeypatch, lambda: _ragged.expand(starts, counts)))
+
+    def scatter(fn, init):
+        out = np.full(n, init)
+        fn(out, grp, values)
+        return out
+
+    with np.errstate(invalid="ignore"):  # NaN values
+        for fn in (_ragged.scatter_min, _ragged.scatter_max):
+            _equal(*_both(monkeypatch, lambda: scatter(fn, 3.0)))
+
+
+def test_circle_fits(monkeypatch):
+    rng = np.random.default_rng(7)
+    xs, ys, gs = [], [], []
+    for g in range(60):
+        m = int(rng.integers(1, 30))  # some groups too small to fit
+        r = rng.uniform(20.0, 3000.0)
+        t = rng.uniform(0, 0.5) + np.sort(rng.uniform(0, 1.0, m))
+        x = 1e5 + r * np.cos(t) + rng.normal(0, 0.05, m)
+        y = 5e6 + r * np.sin(t) + rng.normal(0, 0.05, m)
+        if g % 10 == 0:
+            y = 5e6 + 0.0 * x  # collinear
+        xs.append(x)
+        ys.append(y)
+        gs.append(np.full(m, g))
+    x, y, g = np.concatenate(xs), np.concatenate(ys), np.concatenate(gs)
+    for refine in (False, True):
+        a, b = _both(monkeypatch, lambda: circlefit.fit_circles(x, y, g, 62, refine=refine))
+        assert np.isfinite(a.radius).sum() > 40
+        for k in ("cx", "cy", "radius", "radius_se", "rmse", "n", "radius_sd_unit"):
+            _equal(getattr(a, k), getattr(b, k))
+
+
+def test_find_runs(monkeypatch):
+    from curvescan.geometry.segment import find_runs
+
+    rng = np.random.default_rng(11)
+    n = 3000
+    chain = np.repeat(np.arange(6), n // 6)
+    s = np.concatenate([np.arange(n // 6) * 4.0] * 6)
+    kappa = 0.004 * np.sin(s / 150.0 + chain) + rng.normal(0, 0.0008, n)
+    kappa[::97] = 0.0
+    kw = dict(kappa_on=0.0005, kappa_off=0.00025, min_deflection_rad=0.04,
+              min_length_m=5.0, merge_gap_m=20.0)
+    a, b = _both(monkeypatch, lambda: find_runs(kappa, s, chain, **kw))
+    assert len(a[0]) > 10
+    _equal(a, b)
+
+
+def test_circle_gaps(monkeypatch):
+    rng = np.random.default_rng(4)
+    coords = rng.normal(0, 100.0, (200, 2)) + [6e5, 5e6]
+    fit = circlefit.CircleFit(cx=np.array([6e5, 6e5 + 50.0, np.nan]),
+                              cy=np.array([5e6, 5e6 - 20.0, 5e6]),
+                              radius=np.array([80.0, 10.0, 5.0]),
+                              radius_se=np.zeros(3), rmse=np.zeros(3), n=np.zeros(3, int),
+                              radius_sd_unit=np.zeros(3))
+    idx = rng.integers(0, 200, 500)
+    grp = rng.integers(0, 3, 500)
+    a, b = _both(monkeypatch, lambda: circlefit.circle_gaps(coords, idx, grp, fit))
+    _equal(a, b)
+
+
+def test_chord_curvature_into_a_row(monkeypatch):
+    chains, _ = _chains()
+    st = resample.resample_stations(chains.coords, chains.measure, chains.offsets, 4.0)
+    args = ((st["x"], st["y"]), st["s"], st["chain"], st["st_off"],
+            np.full(chains.n_chains, 5))
+    at = np.arange(3, len(st["s"]), 2)
+
+    def into():
+        row = np.full(len(st["s"]), 7.0)
+        return resample.chord_curvature(*args, at=at, out=row)
+
+    a, b = _both(monkeypatch, into)
+    plain = resample.chord_curvature(*args, at=at)
+    np.testing.assert_array_equal(a[at], plain)
+    np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-15)  # atan2: see module doc
+    assert (a[:3] == 7.0).all() and (b[4:len(b):2] == 7.0).all()
