@@ -207,3 +207,36 @@ def test_chord_curvature_into_a_row(monkeypatch):
     np.testing.assert_array_equal(a[at], plain)
     np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-15)  # atan2: see module doc
     assert (a[:3] == 7.0).all() and (b[4:len(b):2] == 7.0).all()
+
+
+def test_best_split(monkeypatch):
+    from curvescan.geometry import compound
+
+    rng = np.random.default_rng(5)
+    pts, i0, i1, cx, cy, r = [], [], [], [], [], []
+    start = 0
+    for g in range(80):
+        m = int(rng.integers(8, 60))
+        r1 = rng.uniform(30.0, 3000.0)
+        r2 = r1 * (1.0 if g % 3 == 0 else rng.uniform(0.5, 2.0))  # one arc or two
+        t = np.sort(rng.uniform(0.0, 0.6, m))
+        rad = np.where(np.arange(m) < m // 2, r1, r2)
+        noise = 0.0 if g % 4 == 0 else rng.uniform(0.001, 0.3)  # exact circles tie
+        x = 4e5 + rad * np.cos(t) + rng.normal(0, noise, m)
+        y = 6e6 + rad * np.sin(t) + rng.normal(0, noise, m)
+        if g % 17 == 0:
+            x = np.round(x, 1)  # repeated coordinates
+        pts.append(np.column_stack([x, y]))
+        i0.append(start)
+        i1.append(start + m)
+        start += m
+        cx.append(4e5)
+        cy.append(6e6)
+        r.append(r1)
+    coords = np.concatenate(pts)
+    i0, i1 = np.array(i0), np.array(i1)
+    cx, cy, r = np.array(cx), np.array(cy), np.array(r)
+    todo = rng.random(len(i0)) < 0.8
+    a, b = _both(monkeypatch, lambda: compound._best_split(coords, i0, i1, cx, cy, r, todo))
+    assert (a[todo] > i0[todo]).all() and (a[~todo] == -1).all()
+    _equal(a, b)

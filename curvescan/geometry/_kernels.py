@@ -455,6 +455,159 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
         return out
 
 
+    @njit(cache=True)
+    def _kasa_prefix(coords, start, m, cx, cy, r, acc, buf):
+        """``buf[:, k]``: the running moment sums (rows as ``compound._best_split``) after
+        the group's first ``k`` vertices, continued from ``acc`` in index order as
+        ``np.cumsum`` over all groups gives them; ``acc`` ends past the group."""
+        for q in range(10):
+            buf[q, 0] = acc[q]
+        mom = np.empty(10)
+        for k in range(m):
+            u = (coords[start + k, 0] - cx) / r
+            v = (coords[start + k, 1] - cy) / r
+            z = u * u + v * v
+            mom[0] = 1.0
+            mom[1] = u
+            mom[2] = v
+            mom[3] = z
+            mom[4] = u * u
+            mom[5] = u * v
+            mom[6] = v * v
+            mom[7] = u * z
+            mom[8] = v * z
+            mom[9] = z * z
+            for q in range(10):
+                acc[q] += mom[q]
+                buf[q, k + 1] = acc[q]
+
+    @njit(cache=True)
+    def _kasa_bound(mv):
+        """Kasa residual of one moment vector by a 3x3 LU with partial pivoting, and a
+        bound on its difference from LAPACK's: ``(rss, bound)``, bound infinite where
+        the system is too ill-conditioned to tell."""
+        a = np.empty((3, 3))
+        a[0, 0], a[0, 1], a[0, 2] = mv[4], mv[5], mv[1]
+        a[1, 0], a[1, 1], a[1, 2] = mv[5], mv[6], mv[2]
+        a[2, 0], a[2, 1], a[2, 2] = mv[1], mv[2], mv[0]
+        b = np.array([mv[7], mv[8], mv[3]])
+        amax = 0.0
+        for i in range(3):
+            for j in range(3):
+                amax = max(amax, abs(a[i, j]))
+        lu = a.copy()
+        y = b.copy()
+        for j in range(3):
+            p = j
+            for i in range(j + 1, 3):
+                if abs(lu[i, j]) > abs(lu[p, j]):
+                    p = i
+            for k in range(3):
+                lu[j, k], lu[p, k] = lu[p, k], lu[j, k]
+            y[j], y[p] = y[p], y[j]
+            piv = lu[j, j]
+            if not abs(piv) > 1e-12 * amax:
+                return np.nan, np.inf
+            for i in range(j + 1, 3):
+                f = lu[i, j] / piv
+                for k in range(j + 1, 3):
+                    lu[i, k] -= f * lu[j, k]
+                y[i] -= f * y[j]
+        x = np.empty(3)
+        for i in range(2, -1, -1):
+            acc = y[i]
+            for k in range(i + 1, 3):
+                acc -= lu[i, k] * x[k]
+            x[i] = acc / lu[i, i]
+        rss = mv[9] - (b[0] * x[0] + b[1] * x[1] + b[2] * x[2])
+        # both solutions are backward stable, (A + E) x = b with |E| <= ~9 eps |L||U|:
+        # their residuals differ by about eps (|szz| + |b||x| + |x|'|A||x|) (Higham,
+        # Accuracy and Stability of Numerical Algorithms, 2nd ed., 2002, sec. 9.3);
+        # 256 eps leaves a wide margin
+        mag = abs(mv[9])
+        for i in range(3):
+            mag += abs(b[i] * x[i])
+            for j in range(3):
+                mag += abs(x[i]) * abs(a[i, j]) * abs(x[j])
+        if not np.isfinite(rss) or not np.isfinite(mag):
+            return np.nan, np.inf
+        return rss, 256.0 * 2.220446049250313e-16 * mag
+
+    @njit(cache=True)
+    def best_split_kernel(coords, i0, count, cx, cy, r, todo, min_sub):
+        """Split position of each group (see ``compound._best_split``) where the
+        approximate totals decide it beyond their error bounds: ``best`` (offset within the
+        group, -1 where none or undecided) and, for undecided groups, the positions that
+        may be the best with their left and right moment sums (``grp, k, left, right``)
+        for the exact numpy evaluation."""
+        n = i0.shape[0]
+        best = np.full(n, -1, dtype=np.int64)
+        undecided = np.zeros(n, dtype=np.bool_)
+        acc_at = np.zeros((n, 10))
+        acc = np.zeros(10)
+        width = 1
+        for g in range(n):
+            width = max(width, count[g] + 1)
+        buf = np.empty((10, width))
+        tot = np.empty(width)
+        err = np.empty(width)
+        lv = np.empty(10)
+        rv = np.empty(10)
+        offs = np.zeros(n + 1, dtype=np.int64)
+        for g in range(n):
+            offs[g + 1] = offs[g] + count[g] + 1
+        maybe = np.zeros(offs[n], dtype=np.bool_)
+        n_maybe = 0
+        for g in range(n):
+            m = count[g]
+            acc_at[g] = acc
+            _kasa_prefix(coords, i0[g], m, cx[g], cy[g], r[g], acc, buf)
+            if not todo[g] or m < 2 * min_sub:
+                continue
+            upper = np.inf
+            sure = True
+            for k in range(min_sub, m - min_sub + 1):
+                for q in range(10):
+                    lv[q] = buf[q, k] - buf[q, 0]
+                    rv[q] = buf[q, m] - buf[q, k]
+                r1, e1 = _kasa_bound(lv)
+                r2, e2 = _kasa_bound(rv)
+                tot[k] = r1 + r2
+                err[k] = e1 + e2 + 4.0 * 2.220446049250313e-16 * abs(r1 + r2)
+                if not np.isfinite(err[k]):
+                    sure = False
+                upper = min(upper, tot[k] + err[k])
+            hits = 0
+            for k in range(min_sub, m - min_sub + 1):
+                if not sure or tot[k] - err[k] <= upper:
+                    maybe[offs[g] + k] = True
+                    hits += 1
+                    best[g] = k
+            if hits > 1:
+                best[g] = -1
+                undecided[g] = True
+                n_maybe += hits
+        grp = np.empty(n_maybe, dtype=np.int64)
+        pos = np.empty(n_maybe, dtype=np.int64)
+        left = np.empty((10, n_maybe))
+        right = np.empty((10, n_maybe))
+        t = 0
+        for g in range(n):
+            if not undecided[g]:
+                continue
+            m = count[g]
+            acc[:] = acc_at[g]
+            _kasa_prefix(coords, i0[g], m, cx[g], cy[g], r[g], acc, buf)
+            for k in range(min_sub, m - min_sub + 1):
+                if maybe[offs[g] + k]:
+                    grp[t] = g
+                    pos[t] = k
+                    for q in range(10):
+                        left[q, t] = buf[q, k] - buf[q, 0]
+                        right[q, t] = buf[q, m] - buf[q, k]
+                    t += 1
+        return best, grp, pos, left, right
+
 def chord_kappa(x, y, s, chain, st_off, half, at, out=None):
     """Compiled chord curvature at stations ``at`` (see ``resample.chord_curvature``);
     with ``out`` (one value per station) written to ``out[at]`` instead."""

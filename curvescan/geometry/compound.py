@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from . import _kernels as kn
 from ._ragged import expand
 from .circlefit import fit_circles
 
@@ -64,10 +65,26 @@ def _kasa_rss(m: np.ndarray) -> np.ndarray:
 
 
 def _best_split(coords: np.ndarray, i0: np.ndarray, i1: np.ndarray, cx: np.ndarray,
-                cy: np.ndarray, radius: np.ndarray) -> np.ndarray:
+                cy: np.ndarray, radius: np.ndarray, todo: np.ndarray) -> np.ndarray:
     """Vertex index ``j`` (first vertex of the second arc) minimising the summed Kasa
-    residual of ``[i0, j)`` and ``[j, i1)``, per part."""
+    residual of ``[i0, j)`` and ``[j, i1)``, per part; -1 where ``todo`` is False.
+
+    The compiled form scores every position with its own 3x3 solve and a bound on how far
+    that can be from LAPACK's; only where the bounds leave more than one position in the
+    running does it evaluate those positions as the numpy form does (same moment sums,
+    same ``_kasa_rss``), so both give the same ``j``.
+    """
     count = i1 - i0
+    if kn.compiled():
+        k, grp, pos, left, right = kn.best_split_kernel(
+            np.ascontiguousarray(coords, dtype=float), i0.astype(np.int64),
+            count.astype(np.int64), cx, cy, radius, todo, MIN_SUB_VERTICES)
+        if len(grp):
+            total = _kasa_rss(left) + _kasa_rss(right)
+            order = np.lexsort((total, grp))
+            first = np.r_[True, grp[order][1:] != grp[order][:-1]]
+            k[grp[order][first]] = pos[order][first]
+        return np.where(k >= 0, i0 + k, -1)
     idx, grp = expand(i0, count)
     u = (coords[idx, 0] - cx[grp]) / radius[grp]
     v = (coords[idx, 1] - cy[grp]) / radius[grp]
@@ -87,7 +104,7 @@ def _best_split(coords: np.ndarray, i0: np.ndarray, i1: np.ndarray, cx: np.ndarr
         order = np.lexsort((total, g))
         first = np.r_[True, g[order][1:] != g[order][:-1]]
         best[g[order][first]] = p[order][first]
-    return np.where(best >= 0, i0 + k[np.maximum(best, 0)], -1)
+    return np.where((best >= 0) & todo, i0 + k[np.maximum(best, 0)], -1)
 
 
 def split_compound(coords: np.ndarray, gm: np.ndarray, sigma: np.ndarray,
@@ -110,8 +127,14 @@ def split_compound(coords: np.ndarray, gm: np.ndarray, sigma: np.ndarray,
         if len(cand) == 0:
             return parts
         a0, a1 = i0[cand], i1[cand]
+        # two circles cannot lower the residual sum of squares by more than all of it:
+        # where that is below the test's threshold (``drop`` below, with the smallest
+        # variance) the part keeps its circle, and its split is not searched for
+        rss_all = parts["rmse"][cand] ** 2 * (a1 - a0).astype(float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            hopeful = rss_all / sigma[parts["chain"][cand].astype(np.int64)] ** 2 > critical
         j = _best_split(coords, a0, a1, parts["cx"][cand], parts["cy"][cand],
-                        parts["radius"][cand])
+                        parts["radius"][cand], hopeful)
         has = j > 0
         cand, a0, a1, j = cand[has], a0[has], a1[has], j[has]
         if len(cand) == 0:
