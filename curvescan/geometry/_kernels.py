@@ -533,7 +533,7 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
             return np.nan, np.inf
         return rss, 256.0 * 2.220446049250313e-16 * mag
 
-    @njit(cache=True)
+    @njit(parallel=True, cache=True)
     def best_split_kernel(coords, i0, count, cx, cy, r, todo, min_sub):
         """Split position of each group (see ``compound._best_split``) where the
         approximate totals decide it beyond their error bounds: ``best`` (offset within the
@@ -541,29 +541,32 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
         may be the best with their left and right moment sums (``grp, k, left, right``)
         for the exact numpy evaluation."""
         n = i0.shape[0]
-        best = np.full(n, -1, dtype=np.int64)
-        undecided = np.zeros(n, dtype=np.bool_)
-        acc_at = np.zeros((n, 10))
-        acc = np.zeros(10)
+        # the running sums at each group's start, in index order (one sequential pass)
         width = 1
         for g in range(n):
             width = max(width, count[g] + 1)
         buf = np.empty((10, width))
-        tot = np.empty(width)
-        err = np.empty(width)
-        lv = np.empty(10)
-        rv = np.empty(10)
+        acc_at = np.zeros((n, 10))
+        acc = np.zeros(10)
+        for g in range(n):
+            acc_at[g] = acc
+            _kasa_prefix(coords, i0[g], count[g], cx[g], cy[g], r[g], acc, buf)
         offs = np.zeros(n + 1, dtype=np.int64)
         for g in range(n):
             offs[g + 1] = offs[g] + count[g] + 1
+        best = np.full(n, -1, dtype=np.int64)
+        hits = np.zeros(n, dtype=np.int64)
         maybe = np.zeros(offs[n], dtype=np.bool_)
-        n_maybe = 0
-        for g in range(n):
+        for g in prange(n):
             m = count[g]
-            acc_at[g] = acc
-            _kasa_prefix(coords, i0[g], m, cx[g], cy[g], r[g], acc, buf)
             if not todo[g] or m < 2 * min_sub:
                 continue
+            buf = np.empty((10, m + 1))
+            _kasa_prefix(coords, i0[g], m, cx[g], cy[g], r[g], acc_at[g].copy(), buf)
+            tot = np.empty(m + 1)
+            err = np.empty(m + 1)
+            lv = np.empty(10)
+            rv = np.empty(10)
             upper = np.inf
             sure = True
             for k in range(min_sub, m - min_sub + 1):
@@ -577,27 +580,27 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
                 if not np.isfinite(err[k]):
                     sure = False
                 upper = min(upper, tot[k] + err[k])
-            hits = 0
             for k in range(min_sub, m - min_sub + 1):
                 if not sure or tot[k] - err[k] <= upper:
                     maybe[offs[g] + k] = True
-                    hits += 1
+                    hits[g] += 1
                     best[g] = k
-            if hits > 1:
+            if hits[g] > 1:
                 best[g] = -1
-                undecided[g] = True
-                n_maybe += hits
+        n_maybe = 0
+        for g in range(n):
+            if hits[g] > 1:
+                n_maybe += hits[g]
         grp = np.empty(n_maybe, dtype=np.int64)
         pos = np.empty(n_maybe, dtype=np.int64)
         left = np.empty((10, n_maybe))
         right = np.empty((10, n_maybe))
         t = 0
         for g in range(n):
-            if not undecided[g]:
+            if hits[g] <= 1:
                 continue
             m = count[g]
-            acc[:] = acc_at[g]
-            _kasa_prefix(coords, i0[g], m, cx[g], cy[g], r[g], acc, buf)
+            _kasa_prefix(coords, i0[g], m, cx[g], cy[g], r[g], acc_at[g].copy(), buf)
             for k in range(min_sub, m - min_sub + 1):
                 if maybe[offs[g] + k]:
                     grp[t] = g

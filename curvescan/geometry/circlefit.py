@@ -145,14 +145,19 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
     cost = _cost(X, Y, group, n_groups, a, b, r, everyone)
     active = live.copy()
     eye = np.eye(3)
+    # the compiled passes skip the points of groups that have stopped; they walk a subset
+    # holding every active group's points (in index order), cut whenever half have stopped
+    gX, gY, gg, walked = X, Y, group, n_groups
     for _ in range(iterations):
         # live groups have points, so no active group means no points to fit
         act = np.flatnonzero(active)
         if act.size == 0:
             break
         if use:
-            gX, gY, gg = X, Y, group
-            JTJ, JTd = kn.normal_kernel(X, Y, group, active, a, b, r, n_groups)
+            if act.size < walked // 2:
+                keep = active[gg]
+                gX, gY, gg, walked = gX[keep], gY[keep], gg[keep], act.size
+            JTJ, JTd = kn.normal_kernel(gX, gY, gg, active, a, b, r, n_groups)
         else:
             pts = np.flatnonzero(active[group])
             gX, gY, gg = X[pts], Y[pts], group[pts]
