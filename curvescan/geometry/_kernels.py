@@ -11,7 +11,10 @@ form stays in the calling module as the fallback where numba is not installed, o
 :data:`ENABLED` is set to False (the tests compare both). One exception: the compiled
 chord curvature takes ``atan2`` from the C library, numpy its own vectorised one; they
 differ in the last bit. Where an angle is a result (``station_heading``) the kernel
-returns the differences and numpy takes the ``atan2``.
+returns the differences and numpy takes the ``atan2``. The compound split search
+(``best_split_kernel``) gives the same split positions, not the same intermediate
+values: it solves its 3x3 systems itself and hands the positions its error bound cannot
+rank back to numpy's LAPACK solve.
 """
 
 from __future__ import annotations
