@@ -240,3 +240,27 @@ def test_best_split(monkeypatch):
     a, b = _both(monkeypatch, lambda: compound._best_split(coords, i0, i1, cx, cy, r, todo))
     assert (a[todo] > i0[todo]).all() and (a[~todo] == -1).all()
     _equal(a, b)
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_piece_core(monkeypatch, seed):
+    from curvescan.geometry import circular
+
+    rng = np.random.default_rng(seed)
+    n_st = 3000
+    s = np.arange(n_st) * 4.0
+    K = 0.01 * np.sin(s / rng.uniform(30.0, 300.0, (4, 1))) + rng.normal(0, 0.002, (4, n_st))
+    if seed % 2:
+        K = np.round(K, 3)  # ties between values and between runs
+        K[:, ::3] += 1e-16  # apart by less than the quantile's sort key resolves
+    if seed == 3:
+        K[2, 100:200:7] = np.nan
+    prof = circular.Profile(s=s, gs=s, K=K, chain=np.zeros(n_st, dtype=np.int64), gm=s,
+                            coords=np.zeros((n_st, 2)), v_off=np.array([0, n_st]),
+                            sigma=np.ones(1), half_m=np.ones((4, 1)))
+    pf = np.sort(rng.integers(0, n_st - 60, 200))
+    pl = pf + rng.integers(-1, 60, 200)
+    scale = rng.integers(0, 4, 200)
+    a, b = _both(monkeypatch, lambda: circular._core(prof, pf, pl, scale))
+    assert (a[1] - a[0] >= 0).sum() > 150
+    _equal(a, b)

@@ -51,6 +51,9 @@ SEED_VERTICES = 5
 #: The consensus never shrinks a circular part below this many vertices (three always
 #: lie on a circle).
 CONSENSUS_MIN_VERTICES = 5
+#: The core of a piece is where its curvature is at least CORE_SHARE of its CORE_QUANTILE.
+CORE_QUANTILE = 0.9
+CORE_SHARE = 0.8
 
 
 @dataclass
@@ -93,11 +96,14 @@ def _core(prof: Profile, pf: np.ndarray, pl: np.ndarray, scale: np.ndarray):
     spike cannot seed the fit.
     """
     n = len(pf)
-    idx, grp = expand(pf, pl - pf + 1)
     smooth = np.minimum(scale + 1, prof.K.shape[0] - 1)
+    if kn.compiled():
+        return kn.core_kernel(prof.K, smooth.astype(np.int64), pf.astype(np.int64),
+                              pl.astype(np.int64), CORE_QUANTILE, CORE_SHARE)
+    idx, grp = expand(pf, pl - pf + 1)
     ak = np.abs(prof.k(smooth[grp], idx))
-    level = group_quantile(ak, grp, n, 0.9)
-    hit = ak >= 0.8 * level[grp]
+    level = group_quantile(ak, grp, n, CORE_QUANTILE)
+    hit = ak >= CORE_SHARE * level[grp]
     brk = np.ones(len(idx), dtype=bool)
     brk[1:] = (hit[1:] != hit[:-1]) | (grp[1:] != grp[:-1])
     lab = np.cumsum(brk) - 1
