@@ -264,3 +264,5 @@ def test_piece_core(monkeypatch, seed):
     a, b = _both(monkeypatch, lambda: circular._core(prof, pf, pl, scale))
     assert (a[1] - a[0] >= 0).sum() > 150
     _equal(a, b)
+    for q in (0.0, 0.9, 1.0):
+        _equal(*_both(monkeypatch, lambda: _ragged.range_quantile(K, scale, pf, pl, q)))

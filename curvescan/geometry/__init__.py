@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from ..declare import Param
-from ._ragged import expand, find, group_quantile, scatter_max, scatter_min
+from ._ragged import expand, find, range_quantile, scatter_max, scatter_min
 from .circular import (
     CONSENSUS_SIGMAS,
     Profile,
@@ -204,8 +204,7 @@ def _batch(chains: Any, config: Any) -> GeometryResult:
     prof = Profile(s=s, gs=gs, K=K, chain=chain, gm=gm, coords=chains.coords,
                    v_off=chains.offsets, sigma=sigma,
                    half_m=np.stack(halves).astype(float) * spacing)
-    idx, grp = expand(first, last - first + 1)
-    level = group_quantile(np.abs(K[1, idx]), grp, len(first), 0.9)
+    level = range_quantile(K, np.ones(len(first), dtype=np.int64), first, last, 0.9)
     parts = circular_parts(prof, first, last, level,
                            tolerance_floor_m=config.circle_tolerance_m,
                            min_length_m=config.min_curve_length_m,

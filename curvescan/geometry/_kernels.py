@@ -300,18 +300,16 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
         return out
 
     @njit(parallel=True, cache=True)
-    def core_kernel(K, scale, pf, pl, q, share):
-        """First and last station of each piece's core (see ``circular._core``): the run
-        of stations with ``|K[scale]|`` at or above ``share`` times the piece's ``q``
-        quantile (ranked as ``_ragged.group_quantile`` ranks) with the largest sum, the
-        later run on ties."""
+    def range_quantile_kernel(K, row, pf, pl, q):
+        """The ``q`` quantile of ``|K[row[g]]|`` over stations ``pf[g]..pl[g]`` of each
+        range, ranked as ``group_quantile_kernel`` ranks the expanded ranges (the sort key
+        scaled by the range of all values, NaN taken as the top)."""
         n = pf.shape[0]
-        # the quantile's sort key is scaled by the range of all values, NaN taken as the top
         lo = np.inf
         hi = -np.inf
         for g in range(n):
             for i in range(pf[g], pl[g] + 1):
-                v = abs(K[scale[g], i])
+                v = abs(K[row[g], i])
                 if v == v:
                     lo = min(lo, v)
                     hi = max(hi, v)
@@ -319,37 +317,48 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
             lo = np.nan
             hi = np.nan
         span = hi - lo if hi > lo else 1.0
-        first = np.full(n, np.iinfo(np.int64).max, dtype=np.int64)
-        last = np.full(n, -1, dtype=np.int64)
+        out = np.full(n, np.nan)
         for g in prange(n):
             m = pl[g] - pf[g] + 1
             if m <= 0:
                 continue
-            ak = np.empty(m)
             key = np.empty(m)
             pos = np.arange(m)
             for t in range(m):
-                v = abs(K[scale[g], pf[g] + t])
-                ak[t] = v
+                v = abs(K[row[g], pf[g] + t])
                 w = hi if v != v else min(v, 1.7976931348623157e308)
                 key[t] = g + 0.999 * (w - lo) / span
             rank = int(np.floor(q * (m - 1)))
             _select(key, pos, rank)
-            bar = share * ak[pos[rank]]
+            out[g] = abs(K[row[g], pf[g] + pos[rank]])
+        return out
+
+    @njit(parallel=True, cache=True)
+    def core_kernel(K, scale, pf, pl, q, share):
+        """First and last station of each piece's core (see ``circular._core``): the run
+        of stations with ``|K[scale]|`` at or above ``share`` times the piece's ``q``
+        quantile with the largest sum, the later run on ties."""
+        n = pf.shape[0]
+        level = range_quantile_kernel(K, scale, pf, pl, q)
+        first = np.full(n, np.iinfo(np.int64).max, dtype=np.int64)
+        last = np.full(n, -1, dtype=np.int64)
+        for g in prange(n):
+            bar = share * level[g]
             best = 0.0
             run_first = 0
             run_sum = 0.0
-            for t in range(m):
-                hit = ak[t] >= bar
-                if t == 0 or hit != (ak[t - 1] >= bar):
-                    run_first = t
+            for i in range(pf[g], pl[g] + 1):
+                ak = abs(K[scale[g], i])
+                hit = ak >= bar
+                if i == pf[g] or hit != (abs(K[scale[g], i - 1]) >= bar):
+                    run_first = i
                     run_sum = 0.0
-                run_sum += ak[t] if hit else 0.0
-                end = t == m - 1 or (ak[t + 1] >= bar) != hit
+                run_sum += ak if hit else 0.0
+                end = i == pl[g] or (abs(K[scale[g], i + 1]) >= bar) != hit
                 if end and (last[g] < 0 or run_sum >= best):
                     best = run_sum
-                    first[g] = pf[g] + run_first
-                    last[g] = pf[g] + t
+                    first[g] = run_first
+                    last[g] = i
         return first, last
 
     @njit(cache=True)

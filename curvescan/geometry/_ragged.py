@@ -6,7 +6,7 @@ import numpy as np
 
 from . import _kernels as kn
 
-__all__ = ["expand", "group_quantile", "group_argmax", "find", "stops_around", "scatter_min",
+__all__ = ["expand", "group_quantile", "range_quantile", "group_argmax", "find", "stops_around", "scatter_min",
            "scatter_max", "TIE_M"]
 
 #: Measures closer than this (m) count as equal: positions recomputed from different
@@ -46,6 +46,18 @@ def group_quantile(values: np.ndarray, grp: np.ndarray, n: int, q: float) -> np.
     pick = first[has] + np.floor(q * (counts[has] - 1)).astype(np.int64)
     out[has] = values[order][pick]
     return out
+
+
+def range_quantile(rows: np.ndarray, row: np.ndarray, first: np.ndarray, last: np.ndarray,
+                   q: float) -> np.ndarray:
+    """:func:`group_quantile` of ``|rows[row[g]]|`` over the index range ``first[g] ..
+    last[g]`` (inclusive) of each group ``g``."""
+    if kn.compiled():
+        return kn.range_quantile_kernel(rows, np.asarray(row, dtype=np.int64),
+                                        np.asarray(first, dtype=np.int64),
+                                        np.asarray(last, dtype=np.int64), q)
+    idx, grp = expand(first, np.asarray(last) - first + 1)
+    return group_quantile(np.abs(rows[np.asarray(row)[grp], idx]), grp, len(first), q)
 
 
 def group_argmax(values: np.ndarray, grp: np.ndarray, n: int) -> np.ndarray:

@@ -23,8 +23,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from . import _kernels as kn
-from ._ragged import (expand, find, group_argmax, group_quantile, scatter_max, scatter_min,
-                      stops_around)
+from ._ragged import (expand, find, group_argmax, group_quantile, range_quantile, scatter_max,
+                      scatter_min, stops_around)
 from .circlefit import CircleFit, circle_gaps, fit_circles
 from .compound import split_compound
 
@@ -418,8 +418,7 @@ def _piece_integral(prof: Profile, pf: np.ndarray, pl: np.ndarray,
 
 def _piece_level(prof: Profile, pf: np.ndarray, pl: np.ndarray) -> np.ndarray:
     """90th percentile of |curvature| at the finest scale within each piece."""
-    idx, grp = expand(pf, pl - pf + 1)
-    return group_quantile(np.abs(prof.K[0, idx]), grp, len(pf), 0.9)
+    return range_quantile(prof.K, np.zeros(len(pf), dtype=np.int64), pf, pl, 0.9)
 
 
 def _is_plateau(prof: Profile, lo: np.ndarray, hi: np.ndarray, sign: np.ndarray,
