@@ -465,9 +465,11 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
     @njit(cache=True)
     def normal_kernel(X, Y, group, active, a, b, r, n_groups):
         """Gauss-Newton normal equations ``J^T J``, ``J^T d`` of the circle distance over the
-        points of active groups (see ``circlefit._normal``)."""
+        points of active groups (see ``circlefit._normal``), and the sum of squared
+        distances (see ``cost_kernel``)."""
         jtj = np.zeros((n_groups, 3, 3))
         jtd = np.zeros((n_groups, 3))
+        cost = np.zeros(n_groups)
         for i in range(group.shape[0]):
             g = group[i]
             if not active[g]:
@@ -475,6 +477,8 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
             u = X[i] - a[g]
             v = Y[i] - b[g]
             rho = np.hypot(u, v)
+            dc = rho - r[g]
+            cost[g] += dc * dc
             if not rho > 0:
                 rho = 1e-12
             ju = -u / rho
@@ -494,7 +498,7 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
             jtj[g, 1, 0] = jtj[g, 0, 1]
             jtj[g, 2, 0] = jtj[g, 0, 2]
             jtj[g, 2, 1] = jtj[g, 1, 2]
-        return jtj, jtd
+        return jtj, jtd, cost
 
     @njit(cache=True)
     def circle_gap_kernel(coords, idx, grp, cx, cy, r):
@@ -547,21 +551,21 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
                 buf[q, k + 1] = acc[q]
 
     @njit(cache=True)
-    def _kasa_bound(mv):
+    def _kasa_bound(mv, a, lu, b, y, x):
         """Kasa residual of one moment vector by a 3x3 LU with partial pivoting, and a
         bound on its difference from LAPACK's: ``(rss, bound)``, bound infinite where
-        the system is too ill-conditioned to tell."""
-        a = np.empty((3, 3))
+        the system is too ill-conditioned to tell. ``a, lu`` (3x3) and ``b, y, x`` (3)
+        are work arrays."""
         a[0, 0], a[0, 1], a[0, 2] = mv[4], mv[5], mv[1]
         a[1, 0], a[1, 1], a[1, 2] = mv[5], mv[6], mv[2]
         a[2, 0], a[2, 1], a[2, 2] = mv[1], mv[2], mv[0]
-        b = np.array([mv[7], mv[8], mv[3]])
+        b[0], b[1], b[2] = mv[7], mv[8], mv[3]
         amax = 0.0
         for i in range(3):
+            y[i] = b[i]
             for j in range(3):
+                lu[i, j] = a[i, j]
                 amax = max(amax, abs(a[i, j]))
-        lu = a.copy()
-        y = b.copy()
         for j in range(3):
             p = j
             for i in range(j + 1, 3):
@@ -578,7 +582,6 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
                 for k in range(j + 1, 3):
                     lu[i, k] -= f * lu[j, k]
                 y[i] -= f * y[j]
-        x = np.empty(3)
         for i in range(2, -1, -1):
             acc = y[i]
             for k in range(i + 1, 3):
@@ -632,14 +635,19 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
             err = np.empty(m + 1)
             lv = np.empty(10)
             rv = np.empty(10)
+            a = np.empty((3, 3))
+            lu = np.empty((3, 3))
+            b = np.empty(3)
+            y = np.empty(3)
+            x = np.empty(3)
             upper = np.inf
             sure = True
             for k in range(min_sub, m - min_sub + 1):
                 for q in range(10):
                     lv[q] = buf[q, k] - buf[q, 0]
                     rv[q] = buf[q, m] - buf[q, k]
-                r1, e1 = _kasa_bound(lv)
-                r2, e2 = _kasa_bound(rv)
+                r1, e1 = _kasa_bound(lv, a, lu, b, y, x)
+                r2, e2 = _kasa_bound(rv, a, lu, b, y, x)
                 tot[k] = r1 + r2
                 err[k] = e1 + e2 + 4.0 * 2.220446049250313e-16 * abs(r1 + r2)
                 if not np.isfinite(err[k]):

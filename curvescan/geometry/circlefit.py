@@ -142,7 +142,13 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
     a, b, r = np.where(live, a, 0.0), np.where(live, b, 0.0), np.where(live, r, 1.0)
     lam = np.full(n_groups, 1e-6)
     everyone = np.ones(n_groups, dtype=bool)
-    cost = _cost(X, Y, group, n_groups, a, b, r, everyone)
+    if use:
+        # one compiled pass gives the cost and the normal equations at the same circles:
+        # at the start, then at each trial step (kept where the step is taken), so
+        # ``JTJ_at`` always holds them at the current circles
+        JTJ_at, JTd_at, cost = kn.normal_kernel(X, Y, group, everyone, a, b, r, n_groups)
+    else:
+        cost = _cost(X, Y, group, n_groups, a, b, r, everyone)
     active = live.copy()
     eye = np.eye(3)
     # the compiled passes skip the points of groups that have stopped; they walk a subset
@@ -157,7 +163,7 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
             if act.size < walked // 2:
                 keep = active[gg]
                 gX, gY, gg, walked = gX[keep], gY[keep], gg[keep], act.size
-            JTJ, JTd = kn.normal_kernel(gX, gY, gg, active, a, b, r, n_groups)
+            JTJ, JTd = JTJ_at, JTd_at
         else:
             pts = np.flatnonzero(active[group])
             gX, gY, gg = X[pts], Y[pts], group[pts]
@@ -176,8 +182,14 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
         step = np.where(np.isfinite(step) & active[:, None], step, 0.0)
         na, nb, nr = a + step[:, 0], b + step[:, 1], r + step[:, 2]
         new_cost = cost.copy()
-        new_cost[active] = _cost(gX, gY, gg, n_groups, na, nb, nr, active)[active]
+        if use:
+            JTJ_new, JTd_new, trial = kn.normal_kernel(gX, gY, gg, active, na, nb, nr, n_groups)
+            new_cost[active] = trial[active]
+        else:
+            new_cost[active] = _cost(gX, gY, gg, n_groups, na, nb, nr, active)[active]
         better = active & (new_cost <= cost)
+        if use:
+            JTJ_at[better], JTd_at[better] = JTJ_new[better], JTd_new[better]
         a, b, r = np.where(better, na, a), np.where(better, nb, b), np.where(better, nr, r)
         cost = np.where(better, new_cost, cost)
         lam = np.where(better, lam * 0.3, lam * 10.0)
@@ -186,7 +198,7 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
         tiny = big <= 1e-10 * (np.abs(r) + 1.0)
         active &= ~(tiny | (lam > 1e6))
     if use:
-        JTJ, _ = kn.normal_kernel(X, Y, group, everyone, a, b, r, n_groups)
+        JTJ = JTJ_at
     else:
         JTJ, _ = _normal(X, Y, group, n_groups, a, b, r)
     dof = n - 3
