@@ -124,14 +124,17 @@ def condition_order(curves: pd.DataFrame, config: Any) -> list[str]:
 
 
 def carry_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, chains: Any,
-                     config: Any) -> dict[str, Any]:
+                     config: Any, curve_rows: tuple | None = None) -> dict[str, Any]:
     """Add ``road_name``, ``aadt`` and ``on_bridge`` to ``curves`` in place; return a report.
 
     Fields that are absent from the layer give null values (recorded, not warned).
+    ``curve_rows`` are the curves' ``(curve, input row)`` pairs
+    (:func:`curvescan.attributes.rows_on`) when the caller has them.
     """
     n = len(curves)
-    groups, rows = rows_on(chains, curves["chain_id"].to_numpy(),
-                           curves["s_start_m"].to_numpy(), curves["s_end_m"].to_numpy())
+    groups, rows = curve_rows or rows_on(chains, curves["chain_id"].to_numpy(),
+                                         curves["s_start_m"].to_numpy(),
+                                         curves["s_end_m"].to_numpy())
     report: dict[str, Any] = {}
     name = config.name_field
     if name is not None and name in frame.columns:
@@ -267,7 +270,7 @@ def rerank(hazards: pd.DataFrame, winter: pd.DataFrame,
 
 
 def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
-             config: Any) -> Assessment:
+             config: Any, curve_rows: tuple | None = None) -> Assessment:
     """Run the assess stage: attributes, consistency, winter priority and hazards.
 
     Parameters
@@ -279,6 +282,9 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
     chains : curvescan.prepare.Chains
         The chains the curves lie on.
     config : ScanConfig
+    curve_rows : tuple of ndarray, optional
+        The curves' ``(curve, input row)`` pairs (:func:`curvescan.attributes.rows_on`),
+        computed here when not given.
 
     Returns
     -------
@@ -288,7 +294,7 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
         for the run record.
     """
     curves = curves.copy()
-    inputs = carry_attributes(curves, frame, chains, config)
+    inputs = carry_attributes(curves, frame, chains, config, curve_rows)
     lengths = chains.measure[chains.offsets[1:] - 1] if chains.n_chains else np.zeros(0)
     curves = curves.join(consistency(curves, lengths, config))
     names = condition_order(curves, config)

@@ -31,7 +31,7 @@ from .attributes import (
 from .cautions import CAUTION
 from .config import SCAN_PARAMETERS, make_config
 from .errors import DataQualityWarning, InputError
-from .export import CONTRACT_FIELDS, order_columns, run_table, to_output_crs, write_gpkg
+from .export import CONTRACT_FIELDS, order_columns, output_crs, run_table, write_gpkg
 from .geometry import find_curves
 from .geometry.pieces import substrings
 from .geometry.resample import global_measure, interpolate
@@ -139,6 +139,7 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
         report("read", 0.1)
         _check_fields(frame, config)
         chains = _timed(timings, "prepare", lambda: prepare(frame, config))
+        frame = _attributes_only(frame)  # free the input geometries: chains hold them now
         report("prepare", 0.25)
         layers, speed_report, terrain_record = scan_chains(frame, chains, config, dem, report,
                                                            timings)
@@ -177,9 +178,13 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
         progress=lambda done: report("geometry", 0.25 + 0.25 * done)))
     report("geometry", 0.5)
     curves = geo.curves
-    _to_ground(curves, chains)
+    measure = global_measure(chains.measure, chains.offsets)
+    _to_ground(curves, chains, measure)
     curves.attrs["crs"] = chains.crs.to_wkt()
-    speed_report = _attach_attributes(curves, frame, chains, config)
+    # the input rows each curve lies on: for src_fids, posted speeds and assess's fields
+    curve_rows = rows_on(chains, curves["chain_id"].to_numpy(), curves["s_start_m"].to_numpy(),
+                         curves["s_end_m"].to_numpy(), measure)
+    speed_report = _attach_attributes(curves, frame, config, curve_rows)
     ter = _timed(timings, "terrain",
                  lambda: terrain.evaluate(curves, geo.stations, config,
                                           None if dem is None else str(dem)))
@@ -189,8 +194,12 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     phys = _timed(timings, "physics", lambda: physics.evaluate(curves, config))
     curves = curves.join(phys.drop(columns=[c for c in phys.columns if c in curves.columns]))
     report("physics", 0.8)
+    del ter, phys
+    segments = geo.segments
+    del geo
     layers = _timed(timings, "assess",
-                    lambda: _layers(curves, geo.segments, chains, frame, config))
+                    lambda: _layers(curves, segments, chains, frame, config, measure,
+                                    curve_rows))
     report("assess", 0.95)
     return layers, speed_report, terrain_record
 
@@ -200,7 +209,8 @@ _GROUND_LENGTHS = ("radius_m", "radius_se_m", "length_m", "circular_length_m",
                    "transition_in_m", "transition_out_m", "fit_rmse_m")
 
 
-def _to_ground(curves: pd.DataFrame, chains: Any) -> None:
+def _to_ground(curves: pd.DataFrame, chains: Any,
+               measure: tuple[np.ndarray, np.ndarray]) -> None:
     """Turn map lengths into ground lengths in place (``scale_factor`` = map / ground).
 
     The local transverse Mercator the scan chooses is true to scale within 0.1 %; a kept
@@ -210,7 +220,7 @@ def _to_ground(curves: pd.DataFrame, chains: Any) -> None:
     if not len(curves):
         curves["scale_factor"] = pd.Series(dtype=float)
         return
-    gm, base = global_measure(chains.measure, chains.offsets)
+    gm, base = measure
     chain = curves["chain_id"].to_numpy()
     mid = 0.5 * (curves["circ_start_m"].to_numpy() + curves["circ_end_m"].to_numpy())
     xy = interpolate(chains.coords, gm, chains.offsets, chain, mid + base[chain])
@@ -219,6 +229,16 @@ def _to_ground(curves: pd.DataFrame, chains: Any) -> None:
         if col in curves.columns:
             curves[col] = curves[col].to_numpy(dtype=float) / k
     curves["scale_factor"] = k
+
+
+def _attributes_only(frame: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
+    """The input frame with null geometries: the stages after prepare read attributes only."""
+    name = frame.geometry.name
+    crs = frame.crs
+    rest = pd.DataFrame(frame.drop(columns=name), copy=False)
+    rest[name] = gpd.GeoSeries(np.full(len(rest), None, dtype=object), index=rest.index,
+                               crs=crs)
+    return gpd.GeoDataFrame(rest, geometry=name, crs=crs)
 
 
 def _timed(timings: dict, name: str, fn: Callable[[], Any]) -> Any:
@@ -245,13 +265,14 @@ def _check_fields(frame: gpd.GeoDataFrame, config: Any) -> None:
             raise InputError(f"{flag}: field {value!r} not found; fields: {', '.join(map(str, names))}")
 
 
-def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, chains: Any,
-                       config: Any) -> dict:
-    """Add ``src_fids``, ``posted_kmh`` and raw attribute columns to ``curves`` in place."""
+def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, config: Any,
+                       curve_rows: tuple[np.ndarray, np.ndarray]) -> dict:
+    """Add ``src_fids``, ``posted_kmh`` and raw attribute columns to ``curves`` in place.
+
+    ``curve_rows`` are the ``(curve, input row)`` pairs of :func:`rows_on`.
+    """
     n = len(curves)
-    chain = curves["chain_id"].to_numpy()
-    groups, rows = rows_on(chains, chain, curves["s_start_m"].to_numpy(),
-                           curves["s_end_m"].to_numpy())
+    groups, rows = curve_rows
     src = frame["src_fid"].to_numpy()
     curves.insert(1, "src_fids", src_fid_text(groups, rows, src, n))
     report: dict[str, Any] = {"field": config.speed_field}
@@ -276,37 +297,42 @@ def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, chains: An
 
 
 def _layers(curves: pd.DataFrame, segments: pd.DataFrame, chains: Any,
-            frame: gpd.GeoDataFrame, config: Any):
-    crs = chains.crs
-    geom = substrings(chains, curves["chain_id"].to_numpy(), curves["s_start_m"].to_numpy(),
-                      curves["s_end_m"].to_numpy())
+            frame: gpd.GeoDataFrame, config: Any, measure: tuple[np.ndarray, np.ndarray],
+            curve_rows: tuple[np.ndarray, np.ndarray]):
+    # line geometries are built once, directly in the output CRS; hazards and winter
+    # rows share the curves' geometries
+    crs, project = output_crs(chains.crs, frame.crs, config.output_crs)
+    chain = curves["chain_id"].to_numpy()
+    geom = substrings(chains, chain, curves["s_start_m"].to_numpy(),
+                      curves["s_end_m"].to_numpy(), measure, project=project)
     curves_g = gpd.GeoDataFrame(curves, geometry=geom, crs=crs)
+    del geom
     # the stages work in the chain's direction; remember where a curve's own feature
     # runs the other way, to report directions as that feature is digitised
     curves_g["_against"] = reversed_at(
-        chains, curves["chain_id"].to_numpy(),
-        0.5 * (curves["circ_start_m"].to_numpy() + curves["circ_end_m"].to_numpy()))
-    judged = assess.evaluate(curves_g, frame, chains, config)
-    curves_g = judged.curves
-    hz = gpd.GeoDataFrame(judged.hazards, geometry="geometry", crs=crs)
+        chains, chain, 0.5 * (curves["circ_start_m"].to_numpy() + curves["circ_end_m"].to_numpy()),
+        measure)
+    judged = assess.evaluate(curves_g, frame, chains, config, curve_rows)
+    del curves_g
     seg_chain = segments["chain_id"].to_numpy()
     g, r = rows_on(chains, seg_chain, segments["s_start_m"].to_numpy(),
-                   segments["s_end_m"].to_numpy())
-    segments = segments.copy()
+                   segments["s_end_m"].to_numpy(), measure)
+    segments = segments.copy(deep=False)  # copy-on-write: the new columns stay here
     segments.insert(0, "segment_id", np.arange(1, len(segments) + 1, dtype=np.int64))
     segments["src_fids"] = src_fid_text(g, r, frame["src_fid"].to_numpy(), len(segments))
     segments["road_name"] = assess.segment_names(frame, g, r, len(segments), config)
+    del g, r
     sgeom = substrings(chains, seg_chain, segments["s_start_m"].to_numpy(),
-                       segments["s_end_m"].to_numpy())
+                       segments["s_end_m"].to_numpy(), measure, project=project)
     segments_g = gpd.GeoDataFrame(segments, geometry=sgeom, crs=crs)
+    del sgeom, segments
     out = []
-    winter = gpd.GeoDataFrame(judged.winter, geometry="geometry", crs=crs)
-    for layer in (curves_g, segments_g, hz, winter):
+    for layer in (judged.curves, segments_g, judged.hazards, judged.winter):
+        layer = gpd.GeoDataFrame(layer, geometry="geometry", crs=crs)
         if "_against" in layer.columns:
             layer = orient_to_features(layer, layer["_against"].to_numpy(dtype=bool))
         layer = layer.drop(columns=[c for c in layer.columns
                                     if c.startswith("attr_") or c == "_against"])
-        layer = to_output_crs(layer, frame.crs, config.output_crs)
         out.append(order_columns(layer, CONTRACT_FIELDS if len(out) < 3 else ()))
     return out[0], out[1], out[2], {"winter": out[3]}, judged.summary
 

@@ -17,17 +17,19 @@ def test_failed_write_keeps_existing_output(tmp_path, curve_layer, monkeypatch):
     result.to_gpkg(out)
     before = out.read_bytes()
     calls = {"n": 0}
-    real = pyogrio.write_dataframe
 
-    def failing(*args, **kwargs):
-        calls["n"] += 1
-        if calls["n"] == 2:  # fail after the first layer is written
-            raise OSError("disk full (simulated)")
-        return real(*args, **kwargs)
+    def failing(real):
+        def write(*args, **kwargs):
+            calls["n"] += 1
+            if calls["n"] == 2:  # fail after the first layer is written
+                raise OSError("disk full (simulated)")
+            return real(*args, **kwargs)
+        return write
 
     import curvescan.io.vector as vector
 
-    monkeypatch.setattr(vector.pyogrio, "write_dataframe", failing)
+    for name in ("write_dataframe", "write_arrow"):  # layers go through either
+        monkeypatch.setattr(vector.pyogrio, name, failing(getattr(pyogrio, name)))
     with pytest.raises(DataSourceError, match="disk full"):
         result.to_gpkg(out, overwrite=True)
     assert out.read_bytes() == before

@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
-from ._ragged import expand, find
+from ._ragged import find
 from .resample import global_measure, interpolate
 
 __all__ = ["resolve_overlaps", "piece_table", "substrings"]
@@ -98,24 +98,36 @@ def _curve_starts_after(cs: pd.DataFrame, chain: np.ndarray, s: np.ndarray,
     return cs["s_start_m"].to_numpy()[np.minimum(j, len(keys) - 1)]
 
 
-def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray) -> np.ndarray:
-    """LineStrings along ``chain`` from measure ``s0`` to ``s1`` (vectorised)."""
+def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
+               measure: tuple[np.ndarray, np.ndarray] | None = None, *,
+               project: Any = None) -> np.ndarray:
+    """LineStrings along ``chain`` from measure ``s0`` to ``s1`` (vectorised).
+
+    ``measure`` is ``global_measure(chains.measure, chains.offsets)`` when the caller has
+    it already; ``project(x, y) -> (x, y)``, when given, transforms the points (to an
+    output CRS) before the lines are built.
+    """
     if len(chain) == 0:
         return np.array([], dtype=object)
-    gm, base = global_measure(chains.measure, chains.offsets)
+    gm, base = measure or global_measure(chains.measure, chains.offsets)
     g0 = s0 + base[chain]
     g1 = np.maximum(s1, s0) + base[chain]
     # interior vertices strictly inside (near-equal ones are the interpolated ends)
     i0 = find(gm, g0, side="right")
-    i1 = find(gm, g1, side="left")
-    inner = np.maximum(i1 - i0, 0)
+    inner = np.maximum(find(gm, g1, side="left") - i0, 0)
     count = inner + 2
-    pos, grp = expand(np.zeros(len(chain), dtype=np.int64), count)
-    xy = np.empty((count.sum(), 2))
-    is_first = pos == 0
-    is_last = pos == count[grp] - 1
-    mid = ~(is_first | is_last)
-    xy[is_first] = interpolate(chains.coords, gm, chains.offsets, chain, g0)
-    xy[is_last] = interpolate(chains.coords, gm, chains.offsets, chain, g1)
-    xy[mid] = chains.coords[i0[grp[mid]] + pos[mid] - 1]
-    return shapely.linestrings(xy, indices=grp)
+    first = np.cumsum(count) - count  # output row of each piece's first point
+    xy = np.empty((int(first[-1] + count[-1]), 2))
+    xy[first] = interpolate(chains.coords, gm, chains.offsets, chain, g0)
+    xy[first + count - 1] = interpolate(chains.coords, gm, chains.offsets, chain, g1)
+    # interior vertex k of piece p: coords[i0[p] + k] -> row first[p] + 1 + k
+    shift = np.repeat(first + 1 - i0, inner)
+    src = np.arange(len(shift), dtype=np.int64)
+    src -= np.repeat(np.cumsum(inner) - inner - i0, inner)
+    xy[src + shift] = chains.coords[src]
+    del shift, src
+    if project is not None:
+        x, y = project(xy[:, 0], xy[:, 1])
+        xy = np.column_stack([x, y])
+    return shapely.linestrings(xy, indices=np.repeat(np.arange(len(chain)), count))
+

@@ -6,6 +6,7 @@ is moved into place only when complete, so a failed run never destroys a good ou
 
 from __future__ import annotations
 
+import itertools
 import os
 import tempfile
 import warnings
@@ -166,7 +167,11 @@ def write_layers(
                 kwargs["dataset_options"] = {"VERSION": "1.3"}
             if meta:
                 kwargs["layer_metadata"] = meta
-            if isinstance(frame, gpd.GeoDataFrame):
+            stream = _arrow_stream(frame)
+            if stream is not None:  # batches: never the whole layer as WKB at once
+                reader, geometry = stream
+                pyogrio.write_arrow(reader, tmp, **geometry, **kwargs)
+            elif isinstance(frame, gpd.GeoDataFrame):
                 pyogrio.write_dataframe(frame, tmp, use_arrow=True, **kwargs)
             else:
                 pyogrio.write_dataframe(
@@ -182,6 +187,68 @@ def write_layers(
             raise DataSourceError(_first_line(f"cannot write {target}: {exc}")) from None
         raise
     return target
+
+
+#: Rows per Arrow batch when writing a layer: bounds the memory the write needs.
+WRITE_BATCH_ROWS = 65536
+
+#: Layer geometry type names, by shapely type id.
+_TYPE_NAMES = {0: "Point", 1: "LineString", 2: "LineString", 3: "Polygon",
+               4: "MultiPoint", 5: "MultiLineString", 6: "MultiPolygon"}
+
+
+def _arrow_stream(frame: pd.DataFrame) -> tuple[Any, dict[str, Any]] | None:
+    """The layer as a stream of Arrow batches with WKB geometry, and its geometry fields.
+
+    Covers layers of one geometry type whose columns Arrow converts unambiguously (no
+    ``object`` columns); returns None for anything else, which pyogrio's own conversion
+    writes. The fields and values written are those ``pyogrio.write_dataframe`` writes.
+    """
+    import numpy as np
+    import pyarrow as pa
+    import shapely
+
+    geom_name = None
+    if isinstance(frame, gpd.GeoDataFrame):
+        try:
+            geom_name = frame.geometry.name
+        except AttributeError:  # no active geometry column
+            return None
+    attrs = [c for c in frame.columns if c != geom_name]
+    if any(frame[c].dtype == object for c in attrs) or len(frame) == 0:
+        return None
+    geometry: dict[str, Any] = {"geometry_name": geom_name, "geometry_type": None, "crs": None}
+    if geom_name is not None:
+        values = frame.geometry.values
+        types = np.unique(shapely.get_type_id(np.asarray(values)))
+        types = types[types >= 0]
+        if len(types) != 1 or int(types[0]) not in _TYPE_NAMES:
+            return None
+        has_z = bool(np.any(shapely.has_z(np.asarray(values))))
+        geometry["geometry_type"] = _TYPE_NAMES[int(types[0])] + (" Z" if has_z else "")
+        if frame.crs is not None:
+            epsg = frame.crs.to_epsg()
+            geometry["crs"] = f"EPSG:{epsg}" if epsg else frame.crs.to_wkt("WKT1_GDAL")
+
+    def batch(start: int) -> pa.RecordBatch:
+        part = frame.iloc[start:start + WRITE_BATCH_ROWS]
+        table = pa.Table.from_pandas(pd.DataFrame(part[attrs], copy=False),
+                                     preserve_index=False)
+        for i, field in enumerate(table.schema):  # GDAL has no Arrow null type
+            if pa.types.is_null(field.type):
+                table = table.set_column(i, field.with_type(pa.string()),
+                                         table[i].cast(pa.string()))
+        if geom_name is not None:
+            wkb = shapely.to_wkb(np.asarray(part.geometry.values))
+            table = table.append_column(geom_name, pa.array(wkb, type=pa.binary()))
+        return table.combine_chunks().to_batches()[0]
+
+    first = batch(0)
+    rest = (batch(start) for start in range(WRITE_BATCH_ROWS, len(frame), WRITE_BATCH_ROWS))
+    reader = pa.RecordBatchReader.from_batches(first.schema, itertools.chain([first], rest))
+    if geom_name is None:
+        geometry = {}
+    return reader, geometry
 
 
 def _first_line(text: str) -> str:
