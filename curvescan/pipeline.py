@@ -6,6 +6,7 @@ output layers as GeoDataFrames; :meth:`ScanResult.to_gpkg` writes them.
 
 from __future__ import annotations
 
+import ctypes
 import logging
 import os
 import time
@@ -140,6 +141,7 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
         _check_fields(frame, config)
         chains = _timed(timings, "prepare", lambda: prepare(frame, config))
         frame = _attributes_only(frame)  # free the input geometries: chains hold them now
+        _return_freed_memory()
         report("prepare", 0.25)
         layers, speed_report, terrain_record = scan_chains(frame, chains, config, dem, report,
                                                            timings)
@@ -177,6 +179,7 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
         chains, config, keep_stations=dem is not None,
         progress=lambda done: report("geometry", 0.25 + 0.25 * done)))
     report("geometry", 0.5)
+    _return_freed_memory()
     curves = geo.curves
     measure = global_measure(chains.measure, chains.offsets)
     _to_ground(curves, chains, measure)
@@ -239,6 +242,18 @@ def _attributes_only(frame: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
     rest[name] = gpd.GeoSeries(np.full(len(rest), None, dtype=object), index=rest.index,
                                crs=crs)
     return gpd.GeoDataFrame(rest, geometry=name, crs=crs)
+
+
+def _return_freed_memory() -> None:
+    """Hand freed heap memory back to the system (glibc's ``malloc_trim``; else nothing).
+
+    The input's GEOS geometries are many small allocations: freed, they stay resident
+    (and count in the peak) until trimmed.
+    """
+    try:
+        ctypes.CDLL("libc.so.6").malloc_trim(0)
+    except (OSError, AttributeError):  # not glibc
+        pass
 
 
 def _timed(timings: dict, name: str, fn: Callable[[], Any]) -> Any:
@@ -305,7 +320,7 @@ def _layers(curves: pd.DataFrame, segments: pd.DataFrame, chains: Any,
     chain = curves["chain_id"].to_numpy()
     geom = substrings(chains, chain, curves["s_start_m"].to_numpy(),
                       curves["s_end_m"].to_numpy(), measure, project=project)
-    curves_g = gpd.GeoDataFrame(curves, geometry=geom, crs=crs)
+    curves_g = _geoframe(curves, geom, crs)
     del geom
     # the stages work in the chain's direction; remember where a curve's own feature
     # runs the other way, to report directions as that feature is digitised
@@ -324,17 +339,22 @@ def _layers(curves: pd.DataFrame, segments: pd.DataFrame, chains: Any,
     del g, r
     sgeom = substrings(chains, seg_chain, segments["s_start_m"].to_numpy(),
                        segments["s_end_m"].to_numpy(), measure, project=project)
-    segments_g = gpd.GeoDataFrame(segments, geometry=sgeom, crs=crs)
+    segments_g = _geoframe(segments, sgeom, crs)
     del sgeom, segments
     out = []
     for layer in (judged.curves, segments_g, judged.hazards, judged.winter):
-        layer = gpd.GeoDataFrame(layer, geometry="geometry", crs=crs)
+        layer = _geoframe(layer, "geometry", crs)
         if "_against" in layer.columns:
             layer = orient_to_features(layer, layer["_against"].to_numpy(dtype=bool))
         layer = layer.drop(columns=[c for c in layer.columns
                                     if c.startswith("attr_") or c == "_against"])
         out.append(order_columns(layer, CONTRACT_FIELDS if len(out) < 3 else ()))
     return out[0], out[1], out[2], {"winter": out[3]}, judged.summary
+
+
+def _geoframe(table: pd.DataFrame, geometry: Any, crs: Any) -> gpd.GeoDataFrame:
+    """A GeoDataFrame over the columns of ``table`` without copying them."""
+    return gpd.GeoDataFrame(table.copy(deep=False), geometry=geometry, crs=crs, copy=False)
 
 
 def _covered_fids(texts: pd.Series) -> set:

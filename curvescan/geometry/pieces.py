@@ -98,6 +98,10 @@ def _curve_starts_after(cs: pd.DataFrame, chain: np.ndarray, s: np.ndarray,
     return cs["s_start_m"].to_numpy()[np.minimum(j, len(keys) - 1)]
 
 
+#: Points built at once by :func:`substrings` (bounds its temporary arrays).
+SUBSTRING_BATCH_POINTS = 1 << 20
+
+
 def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
                measure: tuple[np.ndarray, np.ndarray] | None = None, *,
                project: Any = None) -> np.ndarray:
@@ -105,7 +109,8 @@ def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
 
     ``measure`` is ``global_measure(chains.measure, chains.offsets)`` when the caller has
     it already; ``project(x, y) -> (x, y)``, when given, transforms the points (to an
-    output CRS) before the lines are built.
+    output CRS) before the lines are built. Lines are built in batches of about
+    :data:`SUBSTRING_BATCH_POINTS` points.
     """
     if len(chain) == 0:
         return np.array([], dtype=object)
@@ -115,11 +120,27 @@ def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
     # interior vertices strictly inside (near-equal ones are the interpolated ends)
     i0 = find(gm, g0, side="right")
     inner = np.maximum(find(gm, g1, side="left") - i0, 0)
+    ends = np.cumsum(inner + 2)
+    cuts = np.searchsorted(ends, np.arange(SUBSTRING_BATCH_POINTS, ends[-1],
+                                           SUBSTRING_BATCH_POINTS), side="right")
+    out = np.empty(len(chain), dtype=object)
+    for a, b in zip(np.r_[0, cuts], np.r_[cuts, len(chain)]):
+        if b > a:
+            out[a:b] = _lines(chains, gm, chain[a:b], g0[a:b], g1[a:b], i0[a:b],
+                              inner[a:b], project)
+    return out
+
+
+def _lines(chains: Any, gm: np.ndarray, chain: np.ndarray, g0: np.ndarray, g1: np.ndarray,
+           i0: np.ndarray, inner: np.ndarray, project: Any) -> np.ndarray:
+    """LineStrings of interpolated ends ``g0``, ``g1`` and ``inner`` vertices from ``i0``."""
     count = inner + 2
-    first = np.cumsum(count) - count  # output row of each piece's first point
-    xy = np.empty((int(first[-1] + count[-1]), 2))
+    offsets = np.zeros(len(chain) + 1, dtype=np.int64)
+    np.cumsum(count, out=offsets[1:])
+    first = offsets[:-1]  # output row of each piece's first point
+    xy = np.empty((int(offsets[-1]), 2))
     xy[first] = interpolate(chains.coords, gm, chains.offsets, chain, g0)
-    xy[first + count - 1] = interpolate(chains.coords, gm, chains.offsets, chain, g1)
+    xy[offsets[1:] - 1] = interpolate(chains.coords, gm, chains.offsets, chain, g1)
     # interior vertex k of piece p: coords[i0[p] + k] -> row first[p] + 1 + k
     shift = np.repeat(first + 1 - i0, inner)
     src = np.arange(len(shift), dtype=np.int64)
@@ -129,5 +150,4 @@ def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
     if project is not None:
         x, y = project(xy[:, 0], xy[:, 1])
         xy = np.column_stack([x, y])
-    return shapely.linestrings(xy, indices=np.repeat(np.arange(len(chain)), count))
-
+    return shapely.from_ragged_array(shapely.GeometryType.LINESTRING, xy, (offsets,))
