@@ -272,7 +272,8 @@ def rerank(hazards: pd.DataFrame, winter: pd.DataFrame,
 
 
 def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
-             config: Any, curve_rows: tuple | None = None) -> Assessment:
+             config: Any, curve_rows: tuple | None = None,
+             chain_lengths: np.ndarray | None = None) -> Assessment:
     """Run the assess stage: attributes, consistency, winter priority and hazards.
 
     Parameters
@@ -287,6 +288,8 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
     curve_rows : tuple of ndarray, optional
         The curves' ``(curve, input row)`` pairs (:func:`curvescan.attributes.rows_on`),
         computed here when not given.
+    chain_lengths : ndarray, optional
+        Length of each chain (m), read from ``chains`` when not given.
 
     Returns
     -------
@@ -297,7 +300,9 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
     """
     curves = curves.copy(deep=False)  # new columns only: the caller's table is not changed
     inputs = carry_attributes(curves, frame, chains, config, curve_rows)
-    lengths = chains.measure[chains.offsets[1:] - 1] if chains.n_chains else np.zeros(0)
+    lengths = chain_lengths
+    if lengths is None:
+        lengths = chains.measure[chains.offsets[1:] - 1] if chains.n_chains else np.zeros(0)
     curves = curves.join(consistency(curves, lengths, config))
     names = condition_order(curves, config)
     if names:

@@ -77,8 +77,12 @@ def write_gpkg(result: Any, path: str | Path, *, overwrite: bool = False) -> Pat
                         finish=hook if callable(hook) else None)
 
 
-def _text_columns(frame: pd.DataFrame) -> pd.DataFrame:
+def _text_columns(frame: Any) -> Any:
     """``object`` columns as text (copy-on-write: the other columns are not copied)."""
+    from .io.vector import WkbLayer
+
+    if isinstance(frame, WkbLayer):
+        return WkbLayer(_text_columns(frame.table), frame.crs, frame.geometry_type)
     geom = frame.geometry.name if isinstance(frame, gpd.GeoDataFrame) else None
     text = {c: frame[c].astype("string") for c in frame.columns
             if frame[c].dtype == object and c != geom}

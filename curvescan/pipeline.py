@@ -36,6 +36,7 @@ from .export import CONTRACT_FIELDS, order_columns, output_crs, run_table, write
 from .geometry import find_curves
 from .geometry.pieces import substrings
 from .geometry.resample import global_measure, interpolate
+from .io.vector import WkbLayer
 from .prepare import point_scale, prepare
 from .read import load
 from .speeds import parse_speeds
@@ -69,11 +70,16 @@ class ScanResult:
     extra: dict[str, pd.DataFrame] = field(default_factory=dict)
     descriptions: dict[str, str] = field(default_factory=dict)
 
-    def layers(self) -> dict[str, pd.DataFrame]:
-        """All layers in write order, the run record as a one-row table last."""
-        out: dict[str, pd.DataFrame] = {"curves": self.curves, "segments": self.segments,
-                                        "hazards": self.hazards}
-        out.update(self.extra)
+    def layers(self) -> dict[str, Any]:
+        """All layers in write order, the run record as a one-row table last.
+
+        Layers still held as WKB (:class:`~curvescan.io.vector.WkbLayer`) are returned as
+        such: writing them needs no shapely geometries.
+        """
+        stored = self.__dict__
+        out: dict[str, Any] = {name: stored[f"_{name}"]
+                               for name in ("curves", "segments", "hazards")}
+        out.update(stored["_extra"])
         out["run"] = run_table(self.run)
         return out
 
@@ -96,7 +102,53 @@ class ScanResult:
         """Store layer styles in the written GeoPackage (see :mod:`curvescan.styles`)."""
         from .styles import write_styles
 
-        write_styles(path, self.layers())
+        write_styles(path, {name: getattr(layer, "table", layer)
+                            for name, layer in self.layers().items()})
+
+    def attributes(self, name: str) -> pd.DataFrame:
+        """The fields of layer ``name`` (``curves``, ``hazards``, ``winter``, ...) without
+        decoding its geometries."""
+        stored = self.__dict__
+        layer = stored[f"_{name}"] if f"_{name}" in stored else stored["_extra"][name]
+        return getattr(layer, "table", layer)
+
+
+def _layer_property(name: str) -> property:
+    """A ScanResult layer: held as given, made a GeoDataFrame the first time it is read."""
+    key = f"_{name}"
+
+    def get(self: ScanResult) -> Any:
+        layer = self.__dict__[key]
+        if isinstance(layer, WkbLayer):
+            layer = self.__dict__[key] = layer.to_geodataframe()
+        return layer
+
+    def put(self: ScanResult, value: Any) -> None:
+        self.__dict__[key] = value
+
+    return property(get, put, doc=f"The ``{name}`` layer (GeoDataFrame).")
+
+
+def _extra_property() -> property:
+    def get(self: ScanResult) -> dict[str, Any]:
+        extra = self.__dict__["_extra"]
+        if any(isinstance(v, WkbLayer) for v in extra.values()):
+            extra = self.__dict__["_extra"] = {
+                k: v.to_geodataframe() if isinstance(v, WkbLayer) else v
+                for k, v in extra.items()}
+        return extra
+
+    def put(self: ScanResult, value: dict[str, Any]) -> None:
+        self.__dict__["_extra"] = value
+
+    return property(get, put, doc="Further layers (GeoDataFrames), e.g. ``winter``.")
+
+
+# Layers are stored as the scan made them (WKB, see WkbLayer) and decoded on first read,
+# so that a scan written straight to a GeoPackage never builds shapely geometries.
+for _name in ("curves", "segments", "hazards"):
+    setattr(ScanResult, _name, _layer_property(_name))
+ScanResult.extra = _extra_property()  # type: ignore[assignment]
 
 
 def scan(source: Any, *, dem: str | os.PathLike | None = None,
@@ -144,15 +196,15 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
         _return_freed_memory()
         report("prepare", 0.25)
         layers, speed_report, terrain_record = scan_chains(frame, chains, config, dem, report,
-                                                           timings)
+                                                           timings, wkb=True)
     messages = []
     for w in caught:
         messages.append(f"{w.category.__name__}: {w.message}")
         warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
     timings["total"] = time.perf_counter() - t0
     curves_l, segments_l, hazards_l, extra_l, assess_summary = layers
-    run = _run_record(source, dem, config, chains, frame, curves_l, hazards_l, segments_l,
-                      speed_report, messages, timings)
+    run = _run_record(source, dem, config, chains, frame, curves_l.table, hazards_l.table,
+                      segments_l.table, speed_report, messages, timings)
     run["terrain"] = terrain_record
     run["assessment"] = assess_summary
     return ScanResult(curves=curves_l, segments=segments_l, hazards=hazards_l, run=run,
@@ -160,7 +212,8 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
 
 
 def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
-                report: Progress, timings: dict[str, float]) -> tuple[tuple, dict, dict]:
+                report: Progress, timings: dict[str, float], *,
+                wkb: bool = False) -> tuple[tuple, dict, dict]:
     """Run the stages after prepare (geometry, terrain, physics, assess) on prepared chains.
 
     Used by :func:`scan` and, once per partition, by :mod:`curvescan.parallel`.
@@ -171,7 +224,10 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
         ``(curves, segments, hazards, extra, assessment)``: three GeoDataFrames in the
         output CRS, a dict of further layers (``winter``) and the assess stage's run-record
         summary. ``severity_rank`` / ``winter_rank`` are ranks within this call; merged
-        partitions re-rank with :func:`curvescan.assess.rerank`.
+        partitions re-rank with :func:`curvescan.assess.rerank`. With ``wkb``, the layers
+        are :class:`~curvescan.io.vector.WkbLayer` (geometries as WKB, no GEOS objects:
+        less memory and a faster write), and the vertex arrays of ``chains`` are released
+        once the layers no longer need them (:meth:`Chains.release_vertices`).
     speed_report, terrain_record : dict
         The posted-speed parsing report and the terrain stage's run record.
     """
@@ -187,6 +243,7 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     # the input rows each curve lies on: for src_fids, posted speeds and assess's fields
     curve_rows = rows_on(chains, curves["chain_id"].to_numpy(), curves["s_start_m"].to_numpy(),
                          curves["s_end_m"].to_numpy(), measure)
+    del measure  # _layers makes its own, to be able to drop it with the chains' vertices
     speed_report = _attach_attributes(curves, frame, config, curve_rows)
     ter = _timed(timings, "terrain",
                  lambda: terrain.evaluate(curves, geo.stations, config,
@@ -201,8 +258,12 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     segments = geo.segments
     del geo
     layers = _timed(timings, "assess",
-                    lambda: _layers(curves, segments, chains, frame, config, measure,
-                                    curve_rows))
+                    lambda: _layers(curves, segments, chains, frame, config, curve_rows,
+                                    release=wkb))
+    if not wkb:
+        c, sg, hz, extra, summary = layers
+        layers = (c.to_geodataframe(), sg.to_geodataframe(), hz.to_geodataframe(),
+                  {k: v.to_geodataframe() for k, v in extra.items()}, summary)
     report("assess", 0.95)
     return layers, speed_report, terrain_record
 
@@ -312,23 +373,27 @@ def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, config: An
 
 
 def _layers(curves: pd.DataFrame, segments: pd.DataFrame, chains: Any,
-            frame: gpd.GeoDataFrame, config: Any, measure: tuple[np.ndarray, np.ndarray],
-            curve_rows: tuple[np.ndarray, np.ndarray]):
-    # line geometries are built once, directly in the output CRS; hazards and winter
-    # rows share the curves' geometries
+            frame: gpd.GeoDataFrame, config: Any, curve_rows: tuple[np.ndarray, np.ndarray],
+            release: bool):
+    """The output layers as :class:`WkbLayer`: lines made once, as WKB in the output CRS.
+
+    Hazards and winter rows carry the WKB of their curves. Everything that needs the
+    chains' vertices comes first; with ``release`` they are dropped before assess adds
+    the hazards and winter layers (lower peak memory).
+    """
     crs, project = output_crs(chains.crs, frame.crs, config.output_crs)
+    measure = global_measure(chains.measure, chains.offsets)
     chain = curves["chain_id"].to_numpy()
     geom = substrings(chains, chain, curves["s_start_m"].to_numpy(),
-                      curves["s_end_m"].to_numpy(), measure, project=project)
-    curves_g = _geoframe(curves, geom, crs)
+                      curves["s_end_m"].to_numpy(), measure, project=project, wkb=True)
+    curves = curves.copy(deep=False)  # new columns only: the caller's table is not changed
+    curves["geometry"] = pd.arrays.ArrowExtensionArray(geom)
     del geom
     # the stages work in the chain's direction; remember where a curve's own feature
     # runs the other way, to report directions as that feature is digitised
-    curves_g["_against"] = reversed_at(
+    curves["_against"] = reversed_at(
         chains, chain, 0.5 * (curves["circ_start_m"].to_numpy() + curves["circ_end_m"].to_numpy()),
         measure)
-    judged = assess.evaluate(curves_g, frame, chains, config, curve_rows)
-    del curves_g
     seg_chain = segments["chain_id"].to_numpy()
     g, r = rows_on(chains, seg_chain, segments["s_start_m"].to_numpy(),
                    segments["s_end_m"].to_numpy(), measure)
@@ -337,24 +402,25 @@ def _layers(curves: pd.DataFrame, segments: pd.DataFrame, chains: Any,
     segments["src_fids"] = src_fid_text(g, r, frame["src_fid"].to_numpy(), len(segments))
     segments["road_name"] = assess.segment_names(frame, g, r, len(segments), config)
     del g, r
-    sgeom = substrings(chains, seg_chain, segments["s_start_m"].to_numpy(),
-                       segments["s_end_m"].to_numpy(), measure, project=project)
-    segments_g = _geoframe(segments, sgeom, crs)
-    del sgeom, segments
+    segments["geometry"] = pd.arrays.ArrowExtensionArray(
+        substrings(chains, seg_chain, segments["s_start_m"].to_numpy(),
+                   segments["s_end_m"].to_numpy(), measure, project=project, wkb=True))
+    lengths = chains.lengths
+    del measure
+    if release:
+        chains.release_vertices()
+    judged = assess.evaluate(curves, frame, chains, config, curve_rows, chain_lengths=lengths)
+    del curves
     out = []
-    for layer in (judged.curves, segments_g, judged.hazards, judged.winter):
-        layer = _geoframe(layer, "geometry", crs)
+    for layer in (judged.curves, segments, judged.hazards, judged.winter):
         if "_against" in layer.columns:
             layer = orient_to_features(layer, layer["_against"].to_numpy(dtype=bool))
         layer = layer.drop(columns=[c for c in layer.columns
                                     if c.startswith("attr_") or c == "_against"])
-        out.append(order_columns(layer, CONTRACT_FIELDS if len(out) < 3 else ()))
+        table = pd.DataFrame(order_columns(layer, CONTRACT_FIELDS if len(out) < 3 else ()),
+                             copy=False)
+        out.append(WkbLayer(table, crs, "LineString"))
     return out[0], out[1], out[2], {"winter": out[3]}, judged.summary
-
-
-def _geoframe(table: pd.DataFrame, geometry: Any, crs: Any) -> gpd.GeoDataFrame:
-    """A GeoDataFrame over the columns of ``table`` without copying them."""
-    return gpd.GeoDataFrame(table.copy(deep=False), geometry=geometry, crs=crs, copy=False)
 
 
 def _covered_fids(texts: pd.Series) -> set:

@@ -6,12 +6,13 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 import shapely
 
 from ._ragged import find
 from .resample import global_measure, interpolate
 
-__all__ = ["resolve_overlaps", "piece_table", "substrings"]
+__all__ = ["resolve_overlaps", "piece_table", "substrings", "linestring_wkb"]
 
 
 def resolve_overlaps(curves: pd.DataFrame) -> pd.DataFrame:
@@ -104,16 +105,20 @@ SUBSTRING_BATCH_POINTS = 1 << 20
 
 def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
                measure: tuple[np.ndarray, np.ndarray] | None = None, *,
-               project: Any = None) -> np.ndarray:
+               project: Any = None, wkb: bool = False) -> Any:
     """LineStrings along ``chain`` from measure ``s0`` to ``s1`` (vectorised).
 
     ``measure`` is ``global_measure(chains.measure, chains.offsets)`` when the caller has
     it already; ``project(x, y) -> (x, y)``, when given, transforms the points (to an
     output CRS) before the lines are built. Lines are built in batches of about
     :data:`SUBSTRING_BATCH_POINTS` points.
+
+    Returns an object array of shapely LineStrings, or with ``wkb`` their WKB (ISO,
+    little-endian, 2D; the bytes ``shapely.to_wkb`` gives) as an Arrow binary array,
+    made without GEOS.
     """
     if len(chain) == 0:
-        return np.array([], dtype=object)
+        return pa.chunked_array([], type=pa.binary()) if wkb else np.array([], dtype=object)
     gm, base = measure or global_measure(chains.measure, chains.offsets)
     g0 = s0 + base[chain]
     g1 = np.maximum(s1, s0) + base[chain]
@@ -123,16 +128,20 @@ def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
     ends = np.cumsum(inner + 2)
     cuts = np.searchsorted(ends, np.arange(SUBSTRING_BATCH_POINTS, ends[-1],
                                            SUBSTRING_BATCH_POINTS), side="right")
-    out = np.empty(len(chain), dtype=object)
+    out = [] if wkb else np.empty(len(chain), dtype=object)
     for a, b in zip(np.r_[0, cuts], np.r_[cuts, len(chain)]):
         if b > a:
-            out[a:b] = _lines(chains, gm, chain[a:b], g0[a:b], g1[a:b], i0[a:b],
-                              inner[a:b], project)
-    return out
+            lines = _lines(chains, gm, chain[a:b], g0[a:b], g1[a:b], i0[a:b], inner[a:b],
+                           project, wkb)
+            if wkb:
+                out.append(lines)
+            else:
+                out[a:b] = lines
+    return pa.chunked_array(out, type=pa.binary()) if wkb else out
 
 
 def _lines(chains: Any, gm: np.ndarray, chain: np.ndarray, g0: np.ndarray, g1: np.ndarray,
-           i0: np.ndarray, inner: np.ndarray, project: Any) -> np.ndarray:
+           i0: np.ndarray, inner: np.ndarray, project: Any, wkb: bool) -> Any:
     """LineStrings of interpolated ends ``g0``, ``g1`` and ``inner`` vertices from ``i0``."""
     count = inner + 2
     offsets = np.zeros(len(chain) + 1, dtype=np.int64)
@@ -150,4 +159,24 @@ def _lines(chains: Any, gm: np.ndarray, chain: np.ndarray, g0: np.ndarray, g1: n
     if project is not None:
         x, y = project(xy[:, 0], xy[:, 1])
         xy = np.column_stack([x, y])
+    if wkb:
+        return linestring_wkb(xy, offsets)
     return shapely.from_ragged_array(shapely.GeometryType.LINESTRING, xy, (offsets,))
+
+
+def linestring_wkb(xy: np.ndarray, offsets: np.ndarray) -> pa.Array:
+    """WKB of the LineStrings ``xy[offsets[i]:offsets[i + 1]]`` as an Arrow binary array.
+
+    Each is the 9-byte header (little-endian byte order mark, type 2, point count) and the
+    points as little-endian doubles: the header bytes are inserted into the coordinate
+    bytes in one pass.
+    """
+    count = np.diff(offsets)
+    header = np.empty((len(count), 9), dtype=np.uint8)
+    header[:, :5] = (1, 2, 0, 0, 0)
+    header[:, 5:] = count.astype("<u4").view(np.uint8).reshape(-1, 4)
+    points = np.ascontiguousarray(xy, dtype="<f8").view(np.uint8).ravel()
+    data = np.insert(points, np.repeat(16 * offsets[:-1], 9), header.ravel())
+    value_offsets = (16 * offsets + 9 * np.arange(len(offsets))).astype(np.int32)
+    return pa.Array.from_buffers(pa.binary(), len(count),
+                                 [None, pa.py_buffer(value_offsets), pa.py_buffer(data)])
