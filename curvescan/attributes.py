@@ -16,7 +16,8 @@ import pyarrow.compute as pc
 from .geometry._ragged import expand
 from .geometry.resample import global_measure
 
-__all__ = ["rows_on", "src_fid_text", "reduce_rows", "reversed_at", "orient_to_features"]
+__all__ = ["rows_on", "src_fid_text", "reduce_rows", "reversed_at", "orient_to_features",
+           "sorted_unique"]
 
 
 def rows_on(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
@@ -49,10 +50,20 @@ def rows_on(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
     # the row after it starts at the next vertex, which the range also covers
     groups = np.concatenate([grp, np.flatnonzero(has), np.arange(len(chain))]).astype(np.int64)
     rows = np.concatenate([vrow[change[idx]], vrow[i0[has]], mid_row]).astype(np.int64)
-    # unique (group, row) pairs through one int64 key: much faster than unique(axis=0)
+    # unique (group, row) pairs through one int64 key
     width = np.int64(rows.max() + 1) if rows.size else np.int64(1)
-    key = np.unique(groups * width + rows)
+    key = sorted_unique(groups * width + rows)
     return key // width, key % width
+
+
+def sorted_unique(values: np.ndarray) -> np.ndarray:
+    """``np.unique`` of a 1-D array by a sort and a comparison.
+
+    numpy's unique hashes integer arrays first, many times slower than a sort on the
+    nearly ordered keys of this module.
+    """
+    values = np.sort(np.asarray(values))
+    return values[np.r_[True, values[1:] != values[:-1]]] if values.size else values
 
 
 def src_fid_text(groups: np.ndarray, rows: np.ndarray, src_fid: np.ndarray, n: int) -> np.ndarray:

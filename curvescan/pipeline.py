@@ -27,6 +27,7 @@ from .attributes import (
     reduce_rows,
     reversed_at,
     rows_on,
+    sorted_unique,
     src_fid_text,
 )
 from .cautions import CAUTION
@@ -431,7 +432,7 @@ def _covered_fids(texts: pd.Series) -> set:
     text = pa.array(texts.astype(str), type=pa.string(), from_pandas=True)
     parts = pc.list_flatten(pc.split_pattern(text, ","))
     parts = pc.filter(parts, pc.not_equal(parts, ""))
-    return set(np.unique(pc.cast(parts, pa.int64()).to_numpy()).tolist())
+    return set(sorted_unique(pc.cast(parts, pa.int64()).to_numpy()).tolist())
 
 
 def _run_record(source, dem, config, chains, frame, curves, hazards, segments, speed_report,

@@ -214,3 +214,11 @@ def test_rows_on_equals_the_rows_of_every_vertex_in_the_stretch():
                     len(m) - 2)
         want = set(chains.vertex_row[inside].tolist()) | {int(chains.vertex_row[j + 1])}
         assert set(r[g == k].tolist()) == want, k
+
+
+@pytest.mark.parametrize("values", [[], [3, 1, 3, 2, 2], list(range(50, 0, -7)) * 3])
+def test_sorted_unique_equals_numpy_unique(values):
+    from curvescan.attributes import sorted_unique
+
+    values = np.asarray(values, dtype=np.int64)
+    np.testing.assert_array_equal(sorted_unique(values), np.unique(values))

@@ -7,6 +7,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import shapely
 
 from ._ragged import find
@@ -168,15 +169,19 @@ def linestring_wkb(xy: np.ndarray, offsets: np.ndarray) -> pa.Array:
     """WKB of the LineStrings ``xy[offsets[i]:offsets[i + 1]]`` as an Arrow binary array.
 
     Each is the 9-byte header (little-endian byte order mark, type 2, point count) and the
-    points as little-endian doubles: the header bytes are inserted into the coordinate
-    bytes in one pass.
+    points as little-endian doubles: Arrow joins a header array and a point array, both
+    views of numpy buffers, element by element. Under 2 GB of points (else large_binary).
     """
+    offsets = np.asarray(offsets, dtype=np.int64)
     count = np.diff(offsets)
     header = np.empty((len(count), 9), dtype=np.uint8)
     header[:, :5] = (1, 2, 0, 0, 0)
     header[:, 5:] = count.astype("<u4").view(np.uint8).reshape(-1, 4)
-    points = np.ascontiguousarray(xy, dtype="<f8").view(np.uint8).ravel()
-    data = np.insert(points, np.repeat(16 * offsets[:-1], 9), header.ravel())
-    value_offsets = (16 * offsets + 9 * np.arange(len(offsets))).astype(np.int32)
-    return pa.Array.from_buffers(pa.binary(), len(count),
-                                 [None, pa.py_buffer(value_offsets), pa.py_buffer(data)])
+    points = np.ascontiguousarray(xy, dtype="<f8")
+    small = 16 * int(offsets[-1]) < 2**31 - 1
+    kind, width = (pa.binary(), np.int32) if small else (pa.large_binary(), np.int64)
+    heads = pa.Array.from_buffers(kind, len(count), [
+        None, pa.py_buffer((9 * np.arange(len(offsets))).astype(width)), pa.py_buffer(header)])
+    body = pa.Array.from_buffers(kind, len(count), [
+        None, pa.py_buffer((16 * offsets).astype(width)), pa.py_buffer(points)])
+    return pc.binary_join_element_wise(heads, body, b"")
