@@ -217,7 +217,7 @@ def hazards(curves: pd.DataFrame, config: Any) -> pd.DataFrame:
     # the severity order first, so that the rows are taken (copied) once, in that order
     order = np.lexsort((curves["curve_id"].to_numpy()[flagged],
                         -np.nan_to_num(mild_excess, nan=0.0), idx))
-    out = curves.iloc[flagged[order]]
+    out = curves.iloc[flagged[order]].copy(deep=False)  # a new table, not a view to warn on
     over, idx, posted, excess = over[order], idx[order], posted[order], excess[order]
     label = np.full(m, "", dtype=object)
     for k, c in enumerate(names):
