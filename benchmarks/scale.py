@@ -172,9 +172,10 @@ def child_scan(path: str, out: str, params: str) -> dict:
     total = time.perf_counter() - t0
     timings = dict(result.run.get("timings_s", {}))
     timings["write+rest"] = round(total - timings.get("total", 0.0), 3)
-    return {"total_s": total, "base_mb": base, "timings": timings,
-            "curves": int(result.run.get("curves", len(result.curves))),
-            "segments": int(result.run.get("segments", len(result.segments)))}
+    run = result.run  # counts from the run record: reading result.curves would decode
+    return {"total_s": total, "base_mb": base, "timings": timings,  # the geometries
+            "curves": int(run["curves"] if "curves" in run else len(result.curves)),
+            "segments": int(run["segments"] if "segments" in run else len(result.segments))}
 
 
 def run_child(kind: str, *args: str) -> dict:

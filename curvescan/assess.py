@@ -124,14 +124,17 @@ def condition_order(curves: pd.DataFrame, config: Any) -> list[str]:
 
 
 def carry_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, chains: Any,
-                     config: Any) -> dict[str, Any]:
+                     config: Any, curve_rows: tuple | None = None) -> dict[str, Any]:
     """Add ``road_name``, ``aadt`` and ``on_bridge`` to ``curves`` in place; return a report.
 
     Fields that are absent from the layer give null values (recorded, not warned).
+    ``curve_rows`` are the curves' ``(curve, input row)`` pairs
+    (:func:`curvescan.attributes.rows_on`) when the caller has them.
     """
     n = len(curves)
-    groups, rows = rows_on(chains, curves["chain_id"].to_numpy(),
-                           curves["s_start_m"].to_numpy(), curves["s_end_m"].to_numpy())
+    groups, rows = curve_rows or rows_on(chains, curves["chain_id"].to_numpy(),
+                                         curves["s_start_m"].to_numpy(),
+                                         curves["s_end_m"].to_numpy())
     report: dict[str, Any] = {}
     name = config.name_field
     if name is not None and name in frame.columns:
@@ -202,26 +205,31 @@ def hazards(curves: pd.DataFrame, config: Any) -> pd.DataFrame:
     if not names:
         return curves.iloc[:0].copy()
     over, mild = _mildest(curves, names)
-    flagged = over.any(axis=1)
-    out = curves.loc[flagged].copy()
+    flagged = np.flatnonzero(over.any(axis=1))
     over = over[flagged]
-    m = len(out)
-    posted = out["posted_kmh"].to_numpy(dtype=float)
+    m = len(flagged)
+    rows = np.arange(m)
+    idx = np.argmax(over, axis=1)  # the mildest condition exceeded (first in ``names``)
+    posted = curves["posted_kmh"].to_numpy(dtype=float)[flagged]
+    excess = np.stack([posted - curves[f"v_{c}_limit_kmh"].to_numpy(dtype=float)[flagged]
+                       for c in names], axis=1)
+    mild_excess = excess[rows, idx]
+    # the severity order first, so that the rows are taken (copied) once, in that order
+    order = np.lexsort((curves["curve_id"].to_numpy()[flagged],
+                        -np.nan_to_num(mild_excess, nan=0.0), idx))
+    out = curves.iloc[flagged[order]].copy(deep=False)  # a new table, not a view to warn on
+    over, idx, posted, excess = over[order], idx[order], posted[order], excess[order]
     label = np.full(m, "", dtype=object)
     for k, c in enumerate(names):
         label = np.where(over[:, k], label + ("," if k else "") + c, label)
-    out["mildest_condition"] = mild[flagged]
+    out["mildest_condition"] = mild[flagged[order]]
     out["exceeds_conditions"] = pd.Series(label, index=out.index).str.lstrip(",")
-    excess = np.stack([posted - out[f"v_{c}_limit_kmh"].to_numpy(dtype=float)
-                       for c in names], axis=1)
     for k, c in enumerate(names):
         out[f"excess_{c}_kmh"] = np.where(over[:, k], np.maximum(excess[:, k], 0.0), 0.0)
     if "v_rollover_kmh" in out:
         out["excess_rollover_kmh"] = np.maximum(posted - out["v_rollover_kmh"].to_numpy(float),
                                                 0.0)
     out["max_excess_kmh"] = np.nanmax(np.where(over, excess, np.nan), axis=1)
-    idx = out["mildest_condition"].map({c: k for k, c in enumerate(names)}).to_numpy(np.int64)
-    rows = np.arange(m)
 
     def pick(pattern: str) -> np.ndarray:
         table = np.stack([out[pattern.format(c)].to_numpy(dtype=object) for c in names], 1)
@@ -237,9 +245,6 @@ def hazards(curves: pd.DataFrame, config: Any) -> pd.DataFrame:
                                     "inside_band")
     out["friction_margin"] = pick("friction_margin_{}").astype(float)
     out["governing_mechanism"] = pick("mechanism_{}")
-    mild_excess = excess[rows, idx]
-    order = np.lexsort((out["curve_id"].to_numpy(), -np.nan_to_num(mild_excess, nan=0.0), idx))
-    out = out.iloc[order]
     out["severity_rank"] = np.arange(1, m + 1, dtype=np.int64)
     return out
 
@@ -267,7 +272,8 @@ def rerank(hazards: pd.DataFrame, winter: pd.DataFrame,
 
 
 def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
-             config: Any) -> Assessment:
+             config: Any, curve_rows: tuple | None = None,
+             chain_lengths: np.ndarray | None = None) -> Assessment:
     """Run the assess stage: attributes, consistency, winter priority and hazards.
 
     Parameters
@@ -279,6 +285,11 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
     chains : curvescan.prepare.Chains
         The chains the curves lie on.
     config : ScanConfig
+    curve_rows : tuple of ndarray, optional
+        The curves' ``(curve, input row)`` pairs (:func:`curvescan.attributes.rows_on`),
+        computed here when not given.
+    chain_lengths : ndarray, optional
+        Length of each chain (m), read from ``chains`` when not given.
 
     Returns
     -------
@@ -287,9 +298,11 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
         (ordered by ``winter_rank``, curves with a score above zero) and a ``summary``
         for the run record.
     """
-    curves = curves.copy()
-    inputs = carry_attributes(curves, frame, chains, config)
-    lengths = chains.measure[chains.offsets[1:] - 1] if chains.n_chains else np.zeros(0)
+    curves = curves.copy(deep=False)  # new columns only: the caller's table is not changed
+    inputs = carry_attributes(curves, frame, chains, config, curve_rows)
+    lengths = chain_lengths
+    if lengths is None:
+        lengths = chains.measure[chains.offsets[1:] - 1] if chains.n_chains else np.zeros(0)
     curves = curves.join(consistency(curves, lengths, config))
     names = condition_order(curves, config)
     if names:
@@ -298,8 +311,8 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
         curves["mildest_condition"] = None
     curves = curves.join(winter_priority(curves, config))
     hz = hazards(curves, config)
-    winter = curves.loc[curves["winter_score"] > 0].sort_values("winter_rank")
-    winter = winter[[c for c in WINTER_FIELDS if c in winter.columns] + ["geometry"]]
+    cols = [c for c in WINTER_FIELDS if c in curves.columns] + ["geometry"]
+    winter = curves.loc[curves["winter_score"] > 0, cols].sort_values("winter_rank")
     summary = run_summary(curves, hz, names, inputs, config)
     return Assessment(curves=curves, hazards=hz, winter=winter, summary=summary)
 
@@ -322,7 +335,7 @@ def run_summary(curves: pd.DataFrame, hz: pd.DataFrame, names: list[str],
     cols = ["curve_id", "road_name", "src_fids", "radius_m", "posted_kmh", "limit_kmh",
             "mildest_condition", "max_excess_kmh", "governing_mechanism", "band_position"]
     worst_rows = hz.head(worst)[[c for c in cols if c in hz.columns]]
-    top_w = curves.sort_values("winter_rank").head(worst)
+    top_w = curves.loc[curves["winter_rank"].sort_values().index[:worst]]
     return {
         "conditions_mildest_first": names,
         "curves_with_posted_speed": int(np.isfinite(posted).sum()),

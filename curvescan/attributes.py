@@ -16,12 +16,18 @@ import pyarrow.compute as pc
 from .geometry._ragged import expand
 from .geometry.resample import global_measure
 
-__all__ = ["rows_on", "src_fid_text", "reduce_rows", "reversed_at", "orient_to_features"]
+__all__ = ["rows_on", "src_fid_text", "reduce_rows", "reversed_at", "orient_to_features",
+           "sorted_unique"]
 
 
-def rows_on(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray):
-    """Input rows each stretch lies on, as flat ``(group, row)`` pairs (unique)."""
-    gm, base = global_measure(chains.measure, chains.offsets)
+def rows_on(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
+            measure: tuple[np.ndarray, np.ndarray] | None = None):
+    """Input rows each stretch lies on, as flat ``(group, row)`` pairs (unique, sorted).
+
+    ``measure`` is ``global_measure(chains.measure, chains.offsets)`` when the caller has
+    it already.
+    """
+    gm, base = measure or global_measure(chains.measure, chains.offsets)
     g0 = s0 + base[chain]
     g1 = s1 + base[chain]
     i0 = np.searchsorted(gm, g0, side="left")
@@ -32,15 +38,32 @@ def rows_on(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray):
     j = np.clip(j, chains.offsets[chain], chains.offsets[chain + 1] - 2)
     # a segment's row is the row of its second vertex (its first may be a joint)
     mid_row = chains.vertex_row[j + 1]
-    idx, grp = expand(i0, i1 - i0)
+    # the rows of the vertices i0 .. i1-1: the row of i0 and of every vertex inside the
+    # range where the row changes (runs of one row are long: no vertex-wise expansion)
+    vrow = chains.vertex_row
+    change = np.flatnonzero(vrow[1:] != vrow[:-1]) + 1
+    c0 = np.searchsorted(change, i0, side="right")
+    n_in = np.maximum(np.searchsorted(change, i1, side="left") - c0, 0)
+    has = i1 > i0
+    idx, grp = expand(c0, np.where(has, n_in, 0))
     # a vertex shared by two parts is stored once, with the row of the earlier part;
     # the row after it starts at the next vertex, which the range also covers
-    groups = np.concatenate([grp, np.arange(len(chain))]).astype(np.int64)
-    rows = np.concatenate([chains.vertex_row[idx], mid_row]).astype(np.int64)
-    # unique (group, row) pairs through one int64 key: much faster than unique(axis=0)
+    groups = np.concatenate([grp, np.flatnonzero(has), np.arange(len(chain))]).astype(np.int64)
+    rows = np.concatenate([vrow[change[idx]], vrow[i0[has]], mid_row]).astype(np.int64)
+    # unique (group, row) pairs through one int64 key
     width = np.int64(rows.max() + 1) if rows.size else np.int64(1)
-    key = np.unique(groups * width + rows)
+    key = sorted_unique(groups * width + rows)
     return key // width, key % width
+
+
+def sorted_unique(values: np.ndarray) -> np.ndarray:
+    """``np.unique`` of a 1-D array by a sort and a comparison.
+
+    numpy's unique hashes integer arrays first, many times slower than a sort on the
+    nearly ordered keys of this module.
+    """
+    values = np.sort(np.asarray(values))
+    return values[np.r_[True, values[1:] != values[:-1]]] if values.size else values
 
 
 def src_fid_text(groups: np.ndarray, rows: np.ndarray, src_fid: np.ndarray, n: int) -> np.ndarray:
@@ -78,14 +101,17 @@ def first_value(groups: np.ndarray, rows: np.ndarray, values: np.ndarray, n: int
     return out
 
 
-def reversed_at(chains: Any, chain: np.ndarray, s: np.ndarray) -> np.ndarray:
+def reversed_at(chains: Any, chain: np.ndarray, s: np.ndarray,
+                measure: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
     """Whether the input feature under measure ``s`` of ``chain`` runs against the chain.
 
     A segment belongs to the part of its second vertex (its first may be a joint).
+    ``measure`` is ``global_measure(chains.measure, chains.offsets)`` when the caller has
+    it already.
     """
     if chains.vertex_reversed is None or len(chain) == 0:
         return np.zeros(len(chain), dtype=bool)
-    gm, base = global_measure(chains.measure, chains.offsets)
+    gm, base = measure or global_measure(chains.measure, chains.offsets)
     j = np.searchsorted(gm, s + base[chain], side="right") - 1
     j = np.clip(j, chains.offsets[chain], chains.offsets[chain + 1] - 2)
     return chains.vertex_reversed[j + 1].astype(bool)
@@ -105,13 +131,15 @@ def orient_to_features(layer: Any, against: np.ndarray) -> Any:
     """
     if not len(layer) or not np.any(against):
         return layer
-    layer = layer.copy()
+    layer = layer.copy(deep=False)  # copy-on-write: changed columns stay here
     flip = np.asarray(against, dtype=bool)
     for col in ("direction", "grade_max_down_direction", "approach_direction"):
         if col in layer.columns:
-            values = layer[col].to_numpy(dtype=object).copy()
-            values[flip] = [_DIRECTION_WORDS.get(v, v) for v in values[flip]]
-            layer[col] = values
+            values = layer[col].to_numpy(dtype=object)
+            out = values.copy()
+            for word, other in _DIRECTION_WORDS.items():
+                out[flip & (values == word)] = other
+            layer[col] = out
     if "grade" in layer.columns:
         layer["grade"] = np.where(flip, -layer["grade"].to_numpy(dtype=float),
                                   layer["grade"].to_numpy(dtype=float))

@@ -70,24 +70,39 @@ def write_gpkg(result: Any, path: str | Path, *, overwrite: bool = False) -> Pat
     """
     from .io.vector import write_layers
 
-    layers: dict[str, pd.DataFrame] = {}
-    for name, frame in result.layers().items():
-        frame = frame.copy()
-        for col in frame.columns:
-            if frame[col].dtype == object and col != "geometry":
-                frame[col] = frame[col].astype("string")
-        layers[name] = frame
+    layers = {name: _text_columns(frame) for name, frame in result.layers().items()}
     meta = {name: {"DESCRIPTION": desc} for name, desc in result.layer_descriptions().items()}
     hook = getattr(result, "after_write", None)  # e.g. layer styles, inside the atomic write
     return write_layers(path, layers, overwrite=overwrite, layer_metadata=meta,
                         finish=hook if callable(hook) else None)
 
 
-def to_output_crs(frame: gpd.GeoDataFrame, input_crs: Any, setting: str) -> gpd.GeoDataFrame:
-    """Re-project a layer for output according to the ``output_crs`` setting."""
-    if setting == "working" or frame.crs is None:
-        return frame
+def _text_columns(frame: Any) -> Any:
+    """``object`` columns as text (copy-on-write: the other columns are not copied)."""
+    from .io.vector import WkbLayer
+
+    if isinstance(frame, WkbLayer):
+        return WkbLayer(_text_columns(frame.table), frame.crs, frame.geometry_type)
+    geom = frame.geometry.name if isinstance(frame, gpd.GeoDataFrame) else None
+    text = {c: frame[c].astype("string") for c in frame.columns
+            if frame[c].dtype == object and c != geom}
+    return frame.assign(**text) if text else frame
+
+
+def output_crs(working: Any, input_crs: Any, setting: str) -> tuple[Any, Any]:
+    """The CRS of the output layers (``output_crs`` setting) and how to get there.
+
+    Returns ``(crs, project)``: ``project(x, y) -> (x, y)`` turns working-CRS coordinates
+    into output coordinates, or is None where the output CRS is the working CRS.
+    """
+    if setting == "working":
+        return working, None
     target = input_crs if setting == "input" else setting
     if target is None:
-        return frame
-    return frame.to_crs(target)
+        return working, None
+    import pyproj
+
+    target = pyproj.CRS.from_user_input(target)
+    if working.is_exact_same(target):
+        return working, None
+    return target, pyproj.Transformer.from_crs(working, target, always_xy=True).transform

@@ -6,6 +6,7 @@ output layers as GeoDataFrames; :meth:`ScanResult.to_gpkg` writes them.
 
 from __future__ import annotations
 
+import ctypes
 import logging
 import os
 import time
@@ -26,15 +27,17 @@ from .attributes import (
     reduce_rows,
     reversed_at,
     rows_on,
+    sorted_unique,
     src_fid_text,
 )
 from .cautions import CAUTION
 from .config import SCAN_PARAMETERS, make_config
 from .errors import DataQualityWarning, InputError
-from .export import CONTRACT_FIELDS, order_columns, run_table, to_output_crs, write_gpkg
+from .export import CONTRACT_FIELDS, order_columns, output_crs, run_table, write_gpkg
 from .geometry import find_curves
 from .geometry.pieces import substrings
 from .geometry.resample import global_measure, interpolate
+from .io.vector import WkbLayer
 from .prepare import point_scale, prepare
 from .read import load
 from .speeds import parse_speeds
@@ -68,11 +71,16 @@ class ScanResult:
     extra: dict[str, pd.DataFrame] = field(default_factory=dict)
     descriptions: dict[str, str] = field(default_factory=dict)
 
-    def layers(self) -> dict[str, pd.DataFrame]:
-        """All layers in write order, the run record as a one-row table last."""
-        out: dict[str, pd.DataFrame] = {"curves": self.curves, "segments": self.segments,
-                                        "hazards": self.hazards}
-        out.update(self.extra)
+    def layers(self) -> dict[str, Any]:
+        """All layers in write order, the run record as a one-row table last.
+
+        Layers still held as WKB (:class:`~curvescan.io.vector.WkbLayer`) are returned as
+        such: writing them needs no shapely geometries.
+        """
+        stored = self.__dict__
+        out: dict[str, Any] = {name: stored[f"_{name}"]
+                               for name in ("curves", "segments", "hazards")}
+        out.update(stored["_extra"])
         out["run"] = run_table(self.run)
         return out
 
@@ -95,7 +103,53 @@ class ScanResult:
         """Store layer styles in the written GeoPackage (see :mod:`curvescan.styles`)."""
         from .styles import write_styles
 
-        write_styles(path, self.layers())
+        write_styles(path, {name: getattr(layer, "table", layer)
+                            for name, layer in self.layers().items()})
+
+    def attributes(self, name: str) -> pd.DataFrame:
+        """The fields of layer ``name`` (``curves``, ``hazards``, ``winter``, ...) without
+        decoding its geometries."""
+        stored = self.__dict__
+        layer = stored[f"_{name}"] if f"_{name}" in stored else stored["_extra"][name]
+        return getattr(layer, "table", layer)
+
+
+def _layer_property(name: str) -> property:
+    """A ScanResult layer: held as given, made a GeoDataFrame the first time it is read."""
+    key = f"_{name}"
+
+    def get(self: ScanResult) -> Any:
+        layer = self.__dict__[key]
+        if isinstance(layer, WkbLayer):
+            layer = self.__dict__[key] = layer.to_geodataframe()
+        return layer
+
+    def put(self: ScanResult, value: Any) -> None:
+        self.__dict__[key] = value
+
+    return property(get, put, doc=f"The ``{name}`` layer (GeoDataFrame).")
+
+
+def _extra_property() -> property:
+    def get(self: ScanResult) -> dict[str, Any]:
+        extra = self.__dict__["_extra"]
+        if any(isinstance(v, WkbLayer) for v in extra.values()):
+            extra = self.__dict__["_extra"] = {
+                k: v.to_geodataframe() if isinstance(v, WkbLayer) else v
+                for k, v in extra.items()}
+        return extra
+
+    def put(self: ScanResult, value: dict[str, Any]) -> None:
+        self.__dict__["_extra"] = value
+
+    return property(get, put, doc="Further layers (GeoDataFrames), e.g. ``winter``.")
+
+
+# Layers are stored as the scan made them (WKB, see WkbLayer) and decoded on first read,
+# so that a scan written straight to a GeoPackage never builds shapely geometries.
+for _name in ("curves", "segments", "hazards"):
+    setattr(ScanResult, _name, _layer_property(_name))
+ScanResult.extra = _extra_property()  # type: ignore[assignment]
 
 
 def scan(source: Any, *, dem: str | os.PathLike | None = None,
@@ -139,17 +193,19 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
         report("read", 0.1)
         _check_fields(frame, config)
         chains = _timed(timings, "prepare", lambda: prepare(frame, config))
+        frame = _attributes_only(frame)  # free the input geometries: chains hold them now
+        _return_freed_memory()
         report("prepare", 0.25)
         layers, speed_report, terrain_record = scan_chains(frame, chains, config, dem, report,
-                                                           timings)
+                                                           timings, wkb=True)
     messages = []
     for w in caught:
         messages.append(f"{w.category.__name__}: {w.message}")
         warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
     timings["total"] = time.perf_counter() - t0
     curves_l, segments_l, hazards_l, extra_l, assess_summary = layers
-    run = _run_record(source, dem, config, chains, frame, curves_l, hazards_l, segments_l,
-                      speed_report, messages, timings)
+    run = _run_record(source, dem, config, chains, frame, curves_l.table, hazards_l.table,
+                      segments_l.table, speed_report, messages, timings)
     run["terrain"] = terrain_record
     run["assessment"] = assess_summary
     return ScanResult(curves=curves_l, segments=segments_l, hazards=hazards_l, run=run,
@@ -157,7 +213,8 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
 
 
 def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
-                report: Progress, timings: dict[str, float]) -> tuple[tuple, dict, dict]:
+                report: Progress, timings: dict[str, float], *,
+                wkb: bool = False) -> tuple[tuple, dict, dict]:
     """Run the stages after prepare (geometry, terrain, physics, assess) on prepared chains.
 
     Used by :func:`scan` and, once per partition, by :mod:`curvescan.parallel`.
@@ -168,7 +225,10 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
         ``(curves, segments, hazards, extra, assessment)``: three GeoDataFrames in the
         output CRS, a dict of further layers (``winter``) and the assess stage's run-record
         summary. ``severity_rank`` / ``winter_rank`` are ranks within this call; merged
-        partitions re-rank with :func:`curvescan.assess.rerank`.
+        partitions re-rank with :func:`curvescan.assess.rerank`. With ``wkb``, the layers
+        are :class:`~curvescan.io.vector.WkbLayer` (geometries as WKB, no GEOS objects:
+        less memory and a faster write), and the vertex arrays of ``chains`` are released
+        once the layers no longer need them (:meth:`Chains.release_vertices`).
     speed_report, terrain_record : dict
         The posted-speed parsing report and the terrain stage's run record.
     """
@@ -176,10 +236,16 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
         chains, config, keep_stations=dem is not None,
         progress=lambda done: report("geometry", 0.25 + 0.25 * done)))
     report("geometry", 0.5)
+    _return_freed_memory()
     curves = geo.curves
-    _to_ground(curves, chains)
+    measure = global_measure(chains.measure, chains.offsets)
+    _to_ground(curves, chains, measure)
     curves.attrs["crs"] = chains.crs.to_wkt()
-    speed_report = _attach_attributes(curves, frame, chains, config)
+    # the input rows each curve lies on: for src_fids, posted speeds and assess's fields
+    curve_rows = rows_on(chains, curves["chain_id"].to_numpy(), curves["s_start_m"].to_numpy(),
+                         curves["s_end_m"].to_numpy(), measure)
+    del measure  # _layers makes its own, to be able to drop it with the chains' vertices
+    speed_report = _attach_attributes(curves, frame, config, curve_rows)
     ter = _timed(timings, "terrain",
                  lambda: terrain.evaluate(curves, geo.stations, config,
                                           None if dem is None else str(dem)))
@@ -189,8 +255,16 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     phys = _timed(timings, "physics", lambda: physics.evaluate(curves, config))
     curves = curves.join(phys.drop(columns=[c for c in phys.columns if c in curves.columns]))
     report("physics", 0.8)
+    del ter, phys
+    segments = geo.segments
+    del geo
     layers = _timed(timings, "assess",
-                    lambda: _layers(curves, geo.segments, chains, frame, config))
+                    lambda: _layers(curves, segments, chains, frame, config, curve_rows,
+                                    release=wkb))
+    if not wkb:
+        c, sg, hz, extra, summary = layers
+        layers = (c.to_geodataframe(), sg.to_geodataframe(), hz.to_geodataframe(),
+                  {k: v.to_geodataframe() for k, v in extra.items()}, summary)
     report("assess", 0.95)
     return layers, speed_report, terrain_record
 
@@ -200,7 +274,8 @@ _GROUND_LENGTHS = ("radius_m", "radius_se_m", "length_m", "circular_length_m",
                    "transition_in_m", "transition_out_m", "fit_rmse_m")
 
 
-def _to_ground(curves: pd.DataFrame, chains: Any) -> None:
+def _to_ground(curves: pd.DataFrame, chains: Any,
+               measure: tuple[np.ndarray, np.ndarray]) -> None:
     """Turn map lengths into ground lengths in place (``scale_factor`` = map / ground).
 
     The local transverse Mercator the scan chooses is true to scale within 0.1 %; a kept
@@ -210,7 +285,7 @@ def _to_ground(curves: pd.DataFrame, chains: Any) -> None:
     if not len(curves):
         curves["scale_factor"] = pd.Series(dtype=float)
         return
-    gm, base = global_measure(chains.measure, chains.offsets)
+    gm, base = measure
     chain = curves["chain_id"].to_numpy()
     mid = 0.5 * (curves["circ_start_m"].to_numpy() + curves["circ_end_m"].to_numpy())
     xy = interpolate(chains.coords, gm, chains.offsets, chain, mid + base[chain])
@@ -219,6 +294,28 @@ def _to_ground(curves: pd.DataFrame, chains: Any) -> None:
         if col in curves.columns:
             curves[col] = curves[col].to_numpy(dtype=float) / k
     curves["scale_factor"] = k
+
+
+def _attributes_only(frame: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
+    """The input frame with null geometries: the stages after prepare read attributes only."""
+    name = frame.geometry.name
+    crs = frame.crs
+    rest = pd.DataFrame(frame.drop(columns=name), copy=False)
+    rest[name] = gpd.GeoSeries(np.full(len(rest), None, dtype=object), index=rest.index,
+                               crs=crs)
+    return gpd.GeoDataFrame(rest, geometry=name, crs=crs)
+
+
+def _return_freed_memory() -> None:
+    """Hand freed heap memory back to the system (glibc's ``malloc_trim``; else nothing).
+
+    The input's GEOS geometries are many small allocations: freed, they stay resident
+    (and count in the peak) until trimmed.
+    """
+    try:
+        ctypes.CDLL("libc.so.6").malloc_trim(0)
+    except (OSError, AttributeError):  # not glibc
+        pass
 
 
 def _timed(timings: dict, name: str, fn: Callable[[], Any]) -> Any:
@@ -245,13 +342,14 @@ def _check_fields(frame: gpd.GeoDataFrame, config: Any) -> None:
             raise InputError(f"{flag}: field {value!r} not found; fields: {', '.join(map(str, names))}")
 
 
-def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, chains: Any,
-                       config: Any) -> dict:
-    """Add ``src_fids``, ``posted_kmh`` and raw attribute columns to ``curves`` in place."""
+def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, config: Any,
+                       curve_rows: tuple[np.ndarray, np.ndarray]) -> dict:
+    """Add ``src_fids``, ``posted_kmh`` and raw attribute columns to ``curves`` in place.
+
+    ``curve_rows`` are the ``(curve, input row)`` pairs of :func:`rows_on`.
+    """
     n = len(curves)
-    chain = curves["chain_id"].to_numpy()
-    groups, rows = rows_on(chains, chain, curves["s_start_m"].to_numpy(),
-                           curves["s_end_m"].to_numpy())
+    groups, rows = curve_rows
     src = frame["src_fid"].to_numpy()
     curves.insert(1, "src_fids", src_fid_text(groups, rows, src, n))
     report: dict[str, Any] = {"field": config.speed_field}
@@ -276,38 +374,53 @@ def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, chains: An
 
 
 def _layers(curves: pd.DataFrame, segments: pd.DataFrame, chains: Any,
-            frame: gpd.GeoDataFrame, config: Any):
-    crs = chains.crs
-    geom = substrings(chains, curves["chain_id"].to_numpy(), curves["s_start_m"].to_numpy(),
-                      curves["s_end_m"].to_numpy())
-    curves_g = gpd.GeoDataFrame(curves, geometry=geom, crs=crs)
+            frame: gpd.GeoDataFrame, config: Any, curve_rows: tuple[np.ndarray, np.ndarray],
+            release: bool):
+    """The output layers as :class:`WkbLayer`: lines made once, as WKB in the output CRS.
+
+    Hazards and winter rows carry the WKB of their curves. Everything that needs the
+    chains' vertices comes first; with ``release`` they are dropped before assess adds
+    the hazards and winter layers (lower peak memory).
+    """
+    crs, project = output_crs(chains.crs, frame.crs, config.output_crs)
+    measure = global_measure(chains.measure, chains.offsets)
+    chain = curves["chain_id"].to_numpy()
+    geom = substrings(chains, chain, curves["s_start_m"].to_numpy(),
+                      curves["s_end_m"].to_numpy(), measure, project=project, wkb=True)
+    curves = curves.copy(deep=False)  # new columns only: the caller's table is not changed
+    curves["geometry"] = pd.arrays.ArrowExtensionArray(geom)
+    del geom
     # the stages work in the chain's direction; remember where a curve's own feature
     # runs the other way, to report directions as that feature is digitised
-    curves_g["_against"] = reversed_at(
-        chains, curves["chain_id"].to_numpy(),
-        0.5 * (curves["circ_start_m"].to_numpy() + curves["circ_end_m"].to_numpy()))
-    judged = assess.evaluate(curves_g, frame, chains, config)
-    curves_g = judged.curves
-    hz = gpd.GeoDataFrame(judged.hazards, geometry="geometry", crs=crs)
+    curves["_against"] = reversed_at(
+        chains, chain, 0.5 * (curves["circ_start_m"].to_numpy() + curves["circ_end_m"].to_numpy()),
+        measure)
     seg_chain = segments["chain_id"].to_numpy()
     g, r = rows_on(chains, seg_chain, segments["s_start_m"].to_numpy(),
-                   segments["s_end_m"].to_numpy())
-    segments = segments.copy()
+                   segments["s_end_m"].to_numpy(), measure)
+    segments = segments.copy(deep=False)  # copy-on-write: the new columns stay here
     segments.insert(0, "segment_id", np.arange(1, len(segments) + 1, dtype=np.int64))
     segments["src_fids"] = src_fid_text(g, r, frame["src_fid"].to_numpy(), len(segments))
     segments["road_name"] = assess.segment_names(frame, g, r, len(segments), config)
-    sgeom = substrings(chains, seg_chain, segments["s_start_m"].to_numpy(),
-                       segments["s_end_m"].to_numpy())
-    segments_g = gpd.GeoDataFrame(segments, geometry=sgeom, crs=crs)
+    del g, r
+    segments["geometry"] = pd.arrays.ArrowExtensionArray(
+        substrings(chains, seg_chain, segments["s_start_m"].to_numpy(),
+                   segments["s_end_m"].to_numpy(), measure, project=project, wkb=True))
+    lengths = chains.lengths
+    del measure
+    if release:
+        chains.release_vertices()
+    judged = assess.evaluate(curves, frame, chains, config, curve_rows, chain_lengths=lengths)
+    del curves
     out = []
-    winter = gpd.GeoDataFrame(judged.winter, geometry="geometry", crs=crs)
-    for layer in (curves_g, segments_g, hz, winter):
+    for layer in (judged.curves, segments, judged.hazards, judged.winter):
         if "_against" in layer.columns:
             layer = orient_to_features(layer, layer["_against"].to_numpy(dtype=bool))
         layer = layer.drop(columns=[c for c in layer.columns
                                     if c.startswith("attr_") or c == "_against"])
-        layer = to_output_crs(layer, frame.crs, config.output_crs)
-        out.append(order_columns(layer, CONTRACT_FIELDS if len(out) < 3 else ()))
+        table = pd.DataFrame(order_columns(layer, CONTRACT_FIELDS if len(out) < 3 else ()),
+                             copy=False)
+        out.append(WkbLayer(table, crs, "LineString"))
     return out[0], out[1], out[2], {"winter": out[3]}, judged.summary
 
 
@@ -319,7 +432,7 @@ def _covered_fids(texts: pd.Series) -> set:
     text = pa.array(texts.astype(str), type=pa.string(), from_pandas=True)
     parts = pc.list_flatten(pc.split_pattern(text, ","))
     parts = pc.filter(parts, pc.not_equal(parts, ""))
-    return set(np.unique(pc.cast(parts, pa.int64()).to_numpy()).tolist())
+    return set(sorted_unique(pc.cast(parts, pa.int64()).to_numpy()).tolist())
 
 
 def _run_record(source, dem, config, chains, frame, curves, hazards, segments, speed_report,

@@ -81,8 +81,8 @@ class Chains:
         Distance of each vertex along its chain (m).
     crs : pyproj.CRS
         The working CRS.
-    rows : ndarray (n_chains,) of object
-        For each chain, the input rows it is made of, in chain order.
+    rows : RaggedRows
+        For each chain, the input rows it is made of, in chain order (``rows[i]``).
     closed : ndarray (n_chains,) of bool
         Whether the chain closes on itself (a ring).
     vertex_reversed : ndarray (n_vertices,) of bool, optional
@@ -98,7 +98,7 @@ class Chains:
     vertex_row: np.ndarray
     measure: np.ndarray
     crs: pyproj.CRS
-    rows: np.ndarray
+    rows: Any
     closed: np.ndarray
     vertex_reversed: np.ndarray | None = None
     skipped: list[dict] = field(default_factory=list)
@@ -114,6 +114,18 @@ class Chains:
         """Length of each chain (m)."""
         last = self.offsets[1:] - 1
         return self.measure[last]
+
+    def release_vertices(self) -> None:
+        """Drop the per-vertex arrays (coordinates, measures, rows, directions).
+
+        For a caller that is done with the geometry and keeps the chains only for their
+        count, CRS, skipped rows and notes: frees most of their memory.
+        """
+        empty = np.zeros(0)
+        self.coords = np.zeros((0, 2))
+        self.measure = empty
+        self.vertex_row = np.zeros(0, dtype=np.int64)
+        self.vertex_reversed = None
 
 
 def working_crs(frame: gpd.GeoDataFrame, override: Any = None) -> tuple[pyproj.CRS, str]:
@@ -225,10 +237,11 @@ def prepare(frame: gpd.GeoDataFrame, config: Any) -> Chains:
     """
     crs, note = working_crs(frame, config.crs)
     notes = [note]
-    geoms = frame.geometry.values
-    if frame.crs != crs:
-        geoms = frame.geometry.to_crs(crs).values
-    coords, part_row, skipped = _clean_parts(np.asarray(geoms, dtype=object), frame, config)
+    project = None
+    if frame.crs != crs:  # project the coordinates, not the geometries (no GEOS copies)
+        project = pyproj.Transformer.from_crs(frame.crs, crs, always_xy=True).transform
+    coords, part_row, skipped = _clean_parts(np.asarray(frame.geometry.values, dtype=object),
+                                             frame, config, project)
     if part_row.size == 0:
         raise InputError("the input has no usable line geometries "
                          f"({len(skipped)} features skipped: {_reason_summary(skipped)})")
@@ -254,56 +267,107 @@ def _reason_summary(skipped: list[dict]) -> str:
     return "; ".join(f"{n} {reason}" for reason, n in counts.items())
 
 
-def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any):
-    """Explode to single lines, drop Z/M, repeated vertices and spikes; record rejects."""
+def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any,
+                 project: Any = None):
+    """Explode to single lines, drop Z/M, repeated vertices and spikes; record rejects.
+
+    ``project(x, y) -> (x, y)``, when given, transforms the vertices to the working CRS.
+    """
     src_fid = frame["src_fid"].to_numpy()
     skipped: list[dict] = []
-    missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+    gtype = shapely.get_type_id(geoms)  # -1 for a missing geometry
+    missing = (gtype < 0) | shapely.is_empty(geoms)
     for i in np.flatnonzero(missing):
         skipped.append({"src_fid": int(src_fid[i]), "reason": "empty or missing geometry"})
-    gtype = shapely.get_type_id(geoms)
     line_like = np.isin(gtype, (1, 2, 5, 7))  # LineString, LinearRing, Multi..., Collection
     for i in np.flatnonzero(~missing & ~line_like):
         skipped.append({"src_fid": int(src_fid[i]),
                         "reason": f"not a line ({geoms[i].geom_type})"})
     keep = np.flatnonzero(~missing & line_like)
-    parts, part_idx = shapely.get_parts(geoms[keep], return_index=True)
-    part_row = keep[part_idx]
+    parts, part_row = _single_parts(geoms, gtype, keep)
     is_line = np.isin(shapely.get_type_id(parts), (1, 2))
     for i in np.flatnonzero(~is_line):
         skipped.append({"src_fid": int(src_fid[part_row[i]]), "reason": "non-line part"})
-    parts, part_row = parts[is_line], part_row[is_line]
+    if not is_line.all():
+        parts, part_row = parts[is_line], part_row[is_line]
     xy, vidx = shapely.get_coordinates(parts, return_index=True)  # 2D: Z/M dropped
-    finite = np.isfinite(xy).all(axis=1)
-    xy, vidx = xy[finite], vidx[finite]
-    # drop repeated vertices
-    same = np.zeros(len(xy), dtype=bool)
-    same[1:] = (vidx[1:] == vidx[:-1]) & np.all(np.abs(np.diff(xy, axis=0)) < 1e-6, axis=1)
-    xy, vidx = xy[~same], vidx[~same]
+    del parts
+    if project is not None:
+        px, py = project(xy[:, 0], xy[:, 1])
+        xy[:, 0], xy[:, 1] = px, py
+        del px, py
+    x, y = xy[:, 0], xy[:, 1]
+    finite = np.isfinite(x) & np.isfinite(y)
+    # drop repeated vertices (and non-finite ones)
+    drop = ~finite
+    drop[1:] |= ((vidx[1:] == vidx[:-1]) & (np.abs(x[1:] - x[:-1]) < 1e-6)
+                 & (np.abs(y[1:] - y[:-1]) < 1e-6))
+    if not finite.all():  # a repeat is judged against the previous finite vertex
+        xy, vidx = xy[finite], vidx[finite]
+        x, y = xy[:, 0], xy[:, 1]
+        drop = np.zeros(len(xy), dtype=bool)
+        drop[1:] = ((vidx[1:] == vidx[:-1]) & (np.abs(x[1:] - x[:-1]) < 1e-6)
+                    & (np.abs(y[1:] - y[:-1]) < 1e-6))
+    if drop.any():
+        xy, vidx = xy[~drop], vidx[~drop]
     xy, vidx = _remove_spikes(xy, vidx, np.radians(config.spike_angle_deg))
-    counts = np.bincount(vidx, minlength=len(parts))
+    counts = np.bincount(vidx, minlength=len(part_row))
     ok = counts >= 2
     for i in np.flatnonzero(~ok):
         skipped.append({"src_fid": int(src_fid[part_row[i]]),
                         "reason": "fewer than two distinct vertices (zero length)"})
+    if ok.all():
+        return (xy, vidx), part_row, skipped
     keep_v = ok[vidx]
     new_id = np.cumsum(ok) - 1
     return (xy[keep_v], new_id[vidx[keep_v]]), part_row[ok], skipped
 
 
+def _single_parts(geoms: np.ndarray, gtype: np.ndarray,
+                  keep: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Parts of the geometries ``geoms[keep]`` in row order, and the row of each part.
+
+    Single lines are used as they are; only multi-part geometries are exploded (exploding
+    copies every geometry).
+    """
+    single = np.isin(gtype[keep], (1, 2))
+    if single.all():
+        return geoms[keep], keep
+    multi = keep[~single]
+    mparts, midx = shapely.get_parts(geoms[multi], return_index=True)
+    rows = np.concatenate([keep[single], multi[midx]])
+    parts = np.concatenate([geoms[keep[single]], mparts])
+    order = np.argsort(rows, kind="stable")  # parts of one row keep their order
+    return parts[order], rows[order]
+
+
 def _remove_spikes(xy: np.ndarray, vidx: np.ndarray, limit_rad: float, passes: int = 3):
-    """Remove interior vertices where the line turns back by more than ``limit_rad``."""
+    """Remove interior vertices where the line turns back by more than ``limit_rad``.
+
+    ``limit_rad`` is at least 90 degrees, so only vertices whose two segments point in
+    opposite half-planes (dot product not positive) can be spikes; the exact turn is
+    computed for those only.
+    """
     for _ in range(passes):
         if len(xy) < 3:
             break
-        d = np.diff(xy, axis=0)
-        ang = np.arctan2(d[:, 1], d[:, 0])
-        turn = np.abs((ang[1:] - ang[:-1] + np.pi) % (2 * np.pi) - np.pi)
-        interior = (vidx[1:-1] == vidx[:-2]) & (vidx[1:-1] == vidx[2:])
-        spike = np.zeros(len(xy), dtype=bool)
-        spike[1:-1] = interior & (turn > limit_rad)
-        if not spike.any():
+        dx = np.diff(xy[:, 0])
+        dy = np.diff(xy[:, 1])
+        dot = dx[1:] * dx[:-1]
+        dot += dy[1:] * dy[:-1]
+        cand = (np.flatnonzero(dot <= 0.0) if limit_rad > np.pi / 2 + 1e-9
+                else np.arange(len(dot)))
+        del dot
+        a = np.arctan2(dy[cand], dx[cand])  # the segment before vertex cand + 1
+        b = np.arctan2(dy[cand + 1], dx[cand + 1])  # the segment after it
+        turn = np.abs((b - a + np.pi) % (2 * np.pi) - np.pi)
+        v = cand + 1
+        interior = (vidx[v] == vidx[v - 1]) & (vidx[v] == vidx[v + 1])
+        hit = v[interior & (turn > limit_rad)]
+        if not hit.size:
             break
+        spike = np.zeros(len(xy), dtype=bool)
+        spike[hit] = True
         # never remove two neighbours in one pass
         spike[1:] &= ~spike[:-1]
         xy, vidx = xy[~spike], vidx[~spike]
@@ -472,36 +536,69 @@ def assemble(xy: np.ndarray, starts: np.ndarray, ends: np.ndarray, part_row: np.
 
     ``chain_of`` must be sorted and number the chains ``0 .. k-1``.
     """
-    # vertex index sequences
-    lens = ends[part] - starts[part] + 1
+    # vertex index sequences: part p contributes take[p] vertices from base[p] onwards,
+    # forwards or backwards (later parts of a chain drop their shared joint vertex)
     first_in_chain = np.ones(len(part), dtype=bool)
     first_in_chain[1:] = chain_of[1:] != chain_of[:-1]
-    take = lens - (~first_in_chain)  # drop the shared joint vertex of later parts
+    later = (~first_in_chain).astype(np.int64)
+    take = ends[part] - starts[part] + 1 - later
+    base = np.where(reverse, ends[part] - later, starts[part] + later)
+    out_first = np.cumsum(take) - take
     rep = np.repeat(np.arange(len(part)), take)
-    within = np.arange(take.sum()) - np.repeat(np.cumsum(take) - take, take)
-    within += np.repeat((~first_in_chain).astype(np.int64), take)
-    fwd_idx = starts[part][rep] + within
-    rev_idx = ends[part][rep] - within
-    vidx = np.where(reverse[rep], rev_idx, fwd_idx)
+    vidx = np.arange(int(take.sum()), dtype=np.int64)
+    vidx -= out_first[rep]
+    backwards = reverse[rep]
+    np.negative(vidx, out=vidx, where=backwards)
+    vidx += base[rep]
     coords = xy[vidx]
-    vertex_chain = chain_of[rep]
+    del vidx
     n_chains = int(chain_of.max()) + 1
     offsets = np.zeros(n_chains + 1, dtype=np.int64)
-    offsets[1:] = np.cumsum(np.bincount(vertex_chain, minlength=n_chains))
-    seg = np.hypot(*np.diff(coords, axis=0).T)
-    seg[vertex_chain[1:] != vertex_chain[:-1]] = 0.0
-    cum = np.concatenate([[0.0], np.cumsum(seg)])
-    measure = cum - cum[offsets[:-1]][vertex_chain]
-    rows_sorted = part_row[part]
-    split = np.flatnonzero(first_in_chain)[1:]
-    rows = np.empty(n_chains, dtype=object)
-    rows[:] = np.split(rows_sorted, split)
+    offsets[1:] = np.cumsum(np.bincount(chain_of, weights=take, minlength=n_chains)
+                            ).astype(np.int64)
+    seg = np.hypot(np.diff(coords[:, 0]), np.diff(coords[:, 1]))
+    seg[offsets[1:-1] - 1] = 0.0  # no length from one chain's last vertex to the next
+    measure = np.empty(len(coords))
+    measure[0] = 0.0
+    np.cumsum(seg, out=measure[1:])
+    del seg
+    measure -= np.repeat(measure[offsets[:-1]], np.diff(offsets))
+    rows = RaggedRows(part_row[part], np.append(np.flatnonzero(first_in_chain), len(part)))
     firsts = coords[offsets[:-1]]
     lasts = coords[offsets[1:] - 1]
     closed = np.hypot(*(firsts - lasts).T) <= max(tolerance, 1e-9)
     return Chains(coords=coords, offsets=offsets, vertex_row=part_row[part][rep],
                   measure=measure, crs=None, rows=rows, closed=closed,
-                  vertex_reversed=reverse[rep])
+                  vertex_reversed=backwards)
+
+
+class RaggedRows:
+    """The input rows of each chain, in chain order, as one flat array and offsets.
+
+    ``rows[i]`` is the array of chain ``i``'s rows; ``rows[a:b]`` is a ``RaggedRows`` of
+    chains ``a`` to ``b - 1``. Held flat: one Python object per chain would cost a second
+    per hundred thousand chains.
+    """
+
+    def __init__(self, values: np.ndarray, offsets: np.ndarray) -> None:
+        self.values = values
+        self.offsets = offsets
+
+    def __len__(self) -> int:
+        return len(self.offsets) - 1
+
+    def __getitem__(self, key: Any) -> Any:
+        if isinstance(key, slice):
+            start, stop, step = key.indices(len(self))
+            if step != 1:
+                raise IndexError("RaggedRows slices need a step of 1")
+            stop = max(stop, start)
+            return RaggedRows(self.values, self.offsets[start:stop + 1])
+        i = range(len(self))[key]
+        return self.values[self.offsets[i]:self.offsets[i + 1]]
+
+    def __iter__(self) -> Any:
+        return (self[i] for i in range(len(self)))
 
 
 def _cluster(points: np.ndarray, tolerance: float) -> np.ndarray:

@@ -52,7 +52,11 @@ def summary_lines(result: Any, worst: int = 10) -> list[str]:
     worst : int
         How many hazard and winter rows to list.
     """
-    curves, hazards, run = result.curves, result.hazards, result.run
+    # the fields only: decoding the layers' geometries is not needed for a summary
+    fields = getattr(result, "attributes", None)
+    curves = fields("curves") if fields else result.curves
+    hazards = fields("hazards") if fields else result.hazards
+    run = result.run
     lines = [f"curves found: {len(curves)} on {run.get('chains', '?')} chains "
              f"from {run.get('input_features', '?')} input features"]
     skipped = run.get("skipped_features", 0)
@@ -88,7 +92,10 @@ def summary_lines(result: Any, worst: int = 10) -> list[str]:
                 f"{str(r.get('governing_mechanism') or ''):<5} "
                 f"{str(r.get('band_position') or ''):<11} "
                 f"{_road(r)}")
-    winter = getattr(result, "extra", {}).get("winter")
+    try:
+        winter = fields("winter") if fields else getattr(result, "extra", {}).get("winter")
+    except KeyError:  # no winter layer
+        winter = None
     if winter is not None and len(winter):
         lines.append(f"winter priority, top {min(worst, len(winter))} (layer 'winter'):")
         for row in winter.head(worst).itertuples(index=False):

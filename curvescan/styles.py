@@ -199,7 +199,8 @@ def layer_style_documents(layers: Mapping[str, Any]) -> dict[str, tuple[str, str
         if frame is None or "mildest_condition" not in frame.columns:
             continue
         present = [c for c in CONDITION_STYLE if f"v_{c}_limit_kmh" in frame.columns]
-        extra = sorted({str(v) for v in frame["mildest_condition"].dropna()} - set(present))
+        seen = frame["mildest_condition"].dropna().unique()  # a few names: no row loop
+        extra = sorted({str(v) for v in seen} - set(present))
         qml, sld = _condition_docs(name, present + extra)
         out[name] = (qml, sld, "colour by the mildest condition whose limit is exceeded")
     seg = layers.get("segments")

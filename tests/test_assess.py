@@ -185,3 +185,40 @@ def test_rerank_after_merge(demo_result):
     hz2, w2 = rerank(merged, w, list(CONDS))
     assert list(hz2["curve_id"]) == list(hz["curve_id"])
     assert list(w2["curve_id"]) == list(winter["curve_id"])
+
+
+def test_rows_on_equals_the_rows_of_every_vertex_in_the_stretch():
+    from curvescan.attributes import rows_on
+    from curvescan.config import make_config
+    from curvescan.prepare import prepare
+    from curvescan.read import load
+
+    from .conftest import frame_from_lines, simple_curve
+
+    al = simple_curve()
+    xy = al.points(np.arange(0, al.length_m, 5.0))
+    cut = [0, 9, 10, 30, 31, 60, len(xy) - 1]  # features of one and two segments too
+    parts = [xy[a:b + 1] for a, b in zip(cut[:-1], cut[1:])]
+    chains = prepare(load(frame_from_lines(parts), make_config()), make_config())
+    rng = np.random.default_rng(2)
+    total = float(chains.lengths[0])
+    s0 = np.sort(rng.uniform(0, total, 300))
+    s1 = np.minimum(s0 + rng.exponential(40.0, 300), total)
+    s0[:5], s1[:5] = [0, 45, 50, 45.0, 10], [total, 45, 50.001, 46.0, 5]  # joints, empty
+    chain = np.zeros(300, dtype=np.int64)
+    g, r = rows_on(chains, chain, s0, s1)
+    m = chains.measure
+    for k in range(300):
+        inside = np.flatnonzero((m >= s0[k]) & (m <= s1[k]))
+        j = np.clip(np.searchsorted(m, 0.5 * (s0[k] + s1[k]), side="right") - 1, 0,
+                    len(m) - 2)
+        want = set(chains.vertex_row[inside].tolist()) | {int(chains.vertex_row[j + 1])}
+        assert set(r[g == k].tolist()) == want, k
+
+
+@pytest.mark.parametrize("values", [[], [3, 1, 3, 2, 2], list(range(50, 0, -7)) * 3])
+def test_sorted_unique_equals_numpy_unique(values):
+    from curvescan.attributes import sorted_unique
+
+    values = np.asarray(values, dtype=np.int64)
+    np.testing.assert_array_equal(sorted_unique(values), np.unique(values))

@@ -201,3 +201,66 @@ def test_duplicated_feature_is_not_joined_back_onto_itself():
         chains = _chains(frame_from_lines([xy, copy]))
         assert chains.n_chains == 2
         assert not chains.closed.any()
+
+
+def _spikes_reference(xy, vidx, limit_rad, passes=3):
+    """The spike rule with the turn computed at every vertex (no pre-filter)."""
+    for _ in range(passes):
+        if len(xy) < 3:
+            break
+        d = np.diff(xy, axis=0)
+        ang = np.arctan2(d[:, 1], d[:, 0])
+        turn = np.abs((ang[1:] - ang[:-1] + np.pi) % (2 * np.pi) - np.pi)
+        interior = (vidx[1:-1] == vidx[:-2]) & (vidx[1:-1] == vidx[2:])
+        spike = np.zeros(len(xy), dtype=bool)
+        spike[1:-1] = interior & (turn > limit_rad)
+        if not spike.any():
+            break
+        spike[1:] &= ~spike[:-1]
+        xy, vidx = xy[~spike], vidx[~spike]
+    return xy, vidx
+
+
+@pytest.mark.parametrize("limit_deg", [90.0, 120.0, 150.0, 179.0])
+def test_spike_filter_equals_turn_at_every_vertex(limit_deg):
+    from curvescan.prepare import _remove_spikes
+
+    rng = np.random.default_rng(3)
+    # random walks with sharp reversals and exact right angles
+    steps = rng.normal(size=(4000, 2))
+    steps[::7] *= -3.0
+    steps[::11] = steps[::11][:, ::-1] * [1, -1]
+    xy = np.cumsum(steps, axis=0)
+    vidx = np.repeat(np.arange(40), 100)
+    got = _remove_spikes(xy, vidx, np.radians(limit_deg))
+    want = _spikes_reference(xy, vidx, np.radians(limit_deg))
+    assert len(got[0]) < len(xy)  # the case removes spikes
+    np.testing.assert_array_equal(got[0], want[0])
+    np.testing.assert_array_equal(got[1], want[1])
+
+
+def test_chain_rows_index_and_slice_like_an_array_per_chain():
+    from curvescan.prepare import RaggedRows
+
+    rows = RaggedRows(np.array([4, 5, 1, 7, 8, 9]), np.array([0, 2, 3, 6]))
+    assert len(rows) == 3
+    assert rows[0].tolist() == [4, 5] and rows[-1].tolist() == [7, 8, 9]
+    part = rows[1:3]
+    assert len(part) == 2 and part[0].tolist() == [1] and part[1].tolist() == [7, 8, 9]
+    assert [r.tolist() for r in rows[2:1]] == []
+    assert [r.tolist() for r in rows] == [[4, 5], [1], [7, 8, 9]]
+    with pytest.raises(IndexError):
+        rows[3]
+
+
+def test_geographic_input_projected_as_coordinates_equals_projected_geometries():
+    al = simple_curve()
+    xy = al.points(np.arange(0, al.length_m, 7.0)) + [500000.0, 5500000.0]
+    utm = frame_from_lines([xy[:40], xy[39:]])
+    geo = utm.to_crs("EPSG:4326")
+    chains = prepare(load(geo, make_config()), make_config())
+    # the same coordinates projected as geometries, then prepared in that CRS
+    again = geo.to_crs(chains.crs)
+    ref = prepare(load(again, make_config()), make_config(crs=chains.crs.to_wkt()))
+    np.testing.assert_array_equal(chains.coords, ref.coords)
+    np.testing.assert_array_equal(chains.measure, ref.measure)

@@ -37,9 +37,31 @@ def _messy_network(rng: np.random.Generator) -> gpd.GeoDataFrame:
     return gpd.GeoDataFrame({"maxspeed": speeds}, geometry=geoms, crs="EPSG:32632")
 
 
-@pytest.mark.parametrize("seed", range(6))
-def test_messy_network_loses_no_row(seed):
-    frame = _messy_network(np.random.default_rng(seed))
+def _junction_network(rng: np.random.Generator) -> gpd.GeoDataFrame:
+    """Lines between shared random nodes (junctions of any degree, stars of more than eight
+    ends), straight or bent, noisy or exact, some reversed, some duplicated."""
+    nodes = rng.uniform(0, 2000, (int(rng.integers(5, 40)), 2))
+    geoms = []
+    for _ in range(int(rng.integers(5, 80))):
+        a, b = rng.integers(0, len(nodes), 2)
+        p, q = nodes[a], nodes[b]
+        t = np.linspace(0, 1, int(rng.integers(2, 30)))[:, None]
+        normal = np.array([p[1] - q[1], q[0] - p[0]]) / max(float(np.hypot(*(q - p))), 1e-9)
+        xy = p + t * (q - p) + np.sin(np.pi * t) * rng.normal(0, rng.choice([0, 5, 50, 300])) * normal
+        xy = xy + rng.normal(0, rng.choice([0, 0.01, 0.5]), xy.shape)
+        xy[0], xy[-1] = p, q
+        geoms.append(shapely.LineString((xy[::-1] if rng.random() < 0.3 else xy) + [5e5, 5e6]))
+        if rng.random() < 0.1:
+            geoms.append(geoms[-1])
+    speeds = rng.choice(["50", None, "30 mph"], len(geoms))
+    return gpd.GeoDataFrame({"maxspeed": speeds}, geometry=geoms, crs="EPSG:32632")
+
+
+@pytest.mark.parametrize("kind,seed", [("messy", s) for s in range(6)]
+                         + [("junctions", s) for s in range(3)])
+def test_messy_network_loses_no_row(kind, seed):
+    make = _messy_network if kind == "messy" else _junction_network
+    frame = make(np.random.default_rng(seed))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         try:

@@ -6,12 +6,14 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 import shapely
 
-from ._ragged import expand, find
+from ._ragged import find
 from .resample import global_measure, interpolate
 
-__all__ = ["resolve_overlaps", "piece_table", "substrings"]
+__all__ = ["resolve_overlaps", "piece_table", "substrings", "linestring_wkb"]
 
 
 def resolve_overlaps(curves: pd.DataFrame) -> pd.DataFrame:
@@ -98,24 +100,88 @@ def _curve_starts_after(cs: pd.DataFrame, chain: np.ndarray, s: np.ndarray,
     return cs["s_start_m"].to_numpy()[np.minimum(j, len(keys) - 1)]
 
 
-def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray) -> np.ndarray:
-    """LineStrings along ``chain`` from measure ``s0`` to ``s1`` (vectorised)."""
+#: Points built at once by :func:`substrings` (bounds its temporary arrays).
+SUBSTRING_BATCH_POINTS = 1 << 20
+
+
+def substrings(chains: Any, chain: np.ndarray, s0: np.ndarray, s1: np.ndarray,
+               measure: tuple[np.ndarray, np.ndarray] | None = None, *,
+               project: Any = None, wkb: bool = False) -> Any:
+    """LineStrings along ``chain`` from measure ``s0`` to ``s1`` (vectorised).
+
+    ``measure`` is ``global_measure(chains.measure, chains.offsets)`` when the caller has
+    it already; ``project(x, y) -> (x, y)``, when given, transforms the points (to an
+    output CRS) before the lines are built. Lines are built in batches of about
+    :data:`SUBSTRING_BATCH_POINTS` points.
+
+    Returns an object array of shapely LineStrings, or with ``wkb`` their WKB (ISO,
+    little-endian, 2D; the bytes ``shapely.to_wkb`` gives) as an Arrow binary array,
+    made without GEOS.
+    """
     if len(chain) == 0:
-        return np.array([], dtype=object)
-    gm, base = global_measure(chains.measure, chains.offsets)
+        return pa.chunked_array([], type=pa.binary()) if wkb else np.array([], dtype=object)
+    gm, base = measure or global_measure(chains.measure, chains.offsets)
     g0 = s0 + base[chain]
     g1 = np.maximum(s1, s0) + base[chain]
     # interior vertices strictly inside (near-equal ones are the interpolated ends)
     i0 = find(gm, g0, side="right")
-    i1 = find(gm, g1, side="left")
-    inner = np.maximum(i1 - i0, 0)
+    inner = np.maximum(find(gm, g1, side="left") - i0, 0)
+    ends = np.cumsum(inner + 2)
+    cuts = np.searchsorted(ends, np.arange(SUBSTRING_BATCH_POINTS, ends[-1],
+                                           SUBSTRING_BATCH_POINTS), side="right")
+    out = [] if wkb else np.empty(len(chain), dtype=object)
+    for a, b in zip(np.r_[0, cuts], np.r_[cuts, len(chain)]):
+        if b > a:
+            lines = _lines(chains, gm, chain[a:b], g0[a:b], g1[a:b], i0[a:b], inner[a:b],
+                           project, wkb)
+            if wkb:
+                out.append(lines)
+            else:
+                out[a:b] = lines
+    return pa.chunked_array(out, type=pa.binary()) if wkb else out
+
+
+def _lines(chains: Any, gm: np.ndarray, chain: np.ndarray, g0: np.ndarray, g1: np.ndarray,
+           i0: np.ndarray, inner: np.ndarray, project: Any, wkb: bool) -> Any:
+    """LineStrings of interpolated ends ``g0``, ``g1`` and ``inner`` vertices from ``i0``."""
     count = inner + 2
-    pos, grp = expand(np.zeros(len(chain), dtype=np.int64), count)
-    xy = np.empty((count.sum(), 2))
-    is_first = pos == 0
-    is_last = pos == count[grp] - 1
-    mid = ~(is_first | is_last)
-    xy[is_first] = interpolate(chains.coords, gm, chains.offsets, chain, g0)
-    xy[is_last] = interpolate(chains.coords, gm, chains.offsets, chain, g1)
-    xy[mid] = chains.coords[i0[grp[mid]] + pos[mid] - 1]
-    return shapely.linestrings(xy, indices=grp)
+    offsets = np.zeros(len(chain) + 1, dtype=np.int64)
+    np.cumsum(count, out=offsets[1:])
+    first = offsets[:-1]  # output row of each piece's first point
+    xy = np.empty((int(offsets[-1]), 2))
+    xy[first] = interpolate(chains.coords, gm, chains.offsets, chain, g0)
+    xy[offsets[1:] - 1] = interpolate(chains.coords, gm, chains.offsets, chain, g1)
+    # interior vertex k of piece p: coords[i0[p] + k] -> row first[p] + 1 + k
+    shift = np.repeat(first + 1 - i0, inner)
+    src = np.arange(len(shift), dtype=np.int64)
+    src -= np.repeat(np.cumsum(inner) - inner - i0, inner)
+    xy[src + shift] = chains.coords[src]
+    del shift, src
+    if project is not None:
+        x, y = project(xy[:, 0], xy[:, 1])
+        xy = np.column_stack([x, y])
+    if wkb:
+        return linestring_wkb(xy, offsets)
+    return shapely.from_ragged_array(shapely.GeometryType.LINESTRING, xy, (offsets,))
+
+
+def linestring_wkb(xy: np.ndarray, offsets: np.ndarray) -> pa.Array:
+    """WKB of the LineStrings ``xy[offsets[i]:offsets[i + 1]]`` as an Arrow binary array.
+
+    Each is the 9-byte header (little-endian byte order mark, type 2, point count) and the
+    points as little-endian doubles: Arrow joins a header array and a point array, both
+    views of numpy buffers, element by element. Under 2 GB of points (else large_binary).
+    """
+    offsets = np.asarray(offsets, dtype=np.int64)
+    count = np.diff(offsets)
+    header = np.empty((len(count), 9), dtype=np.uint8)
+    header[:, :5] = (1, 2, 0, 0, 0)
+    header[:, 5:] = count.astype("<u4").view(np.uint8).reshape(-1, 4)
+    points = np.ascontiguousarray(xy, dtype="<f8")
+    small = 16 * int(offsets[-1]) < 2**31 - 1
+    kind, width = (pa.binary(), np.int32) if small else (pa.large_binary(), np.int64)
+    heads = pa.Array.from_buffers(kind, len(count), [
+        None, pa.py_buffer((9 * np.arange(len(offsets))).astype(width)), pa.py_buffer(header)])
+    body = pa.Array.from_buffers(kind, len(count), [
+        None, pa.py_buffer((16 * offsets).astype(width)), pa.py_buffer(points)])
+    return pc.binary_join_element_wise(heads, body, b"")

@@ -6,6 +6,7 @@ is moved into place only when complete, so a failed run never destroys a good ou
 
 from __future__ import annotations
 
+import itertools
 import os
 import tempfile
 import warnings
@@ -19,7 +20,7 @@ from pyogrio.errors import DataLayerError, DataSourceError as _PyogrioSourceErro
 
 from ..errors import DataQualityWarning, DataSourceError, InputError, OutputExistsError
 
-__all__ = ["read_layer", "list_line_layers", "write_layers", "check_output_path"]
+__all__ = ["read_layer", "list_line_layers", "write_layers", "check_output_path", "WkbLayer"]
 
 #: GPX layers that hold lines, in order of preference.
 _GPX_LINE_LAYERS = ("tracks", "routes")
@@ -141,7 +142,7 @@ def check_output_path(path: str | os.PathLike, overwrite: bool) -> Path:
 
 def write_layers(
     path: str | os.PathLike,
-    layers: Mapping[str, pd.DataFrame],
+    layers: Mapping[str, pd.DataFrame | WkbLayer],
     *,
     overwrite: bool = False,
     layer_metadata: Mapping[str, Mapping[str, str]] | None = None,
@@ -166,7 +167,13 @@ def write_layers(
                 kwargs["dataset_options"] = {"VERSION": "1.3"}
             if meta:
                 kwargs["layer_metadata"] = meta
-            if isinstance(frame, gpd.GeoDataFrame):
+            stream = _arrow_stream(frame)
+            if stream is not None:  # batches: never the whole layer as WKB at once
+                reader, geometry = stream
+                pyogrio.write_arrow(reader, tmp, **geometry, **kwargs)
+            elif isinstance(frame, WkbLayer):
+                pyogrio.write_dataframe(frame.to_geodataframe(), tmp, use_arrow=True, **kwargs)
+            elif isinstance(frame, gpd.GeoDataFrame):
                 pyogrio.write_dataframe(frame, tmp, use_arrow=True, **kwargs)
             else:
                 pyogrio.write_dataframe(
@@ -182,6 +189,111 @@ def write_layers(
             raise DataSourceError(_first_line(f"cannot write {target}: {exc}")) from None
         raise
     return target
+
+
+#: Rows per Arrow batch when writing a layer: bounds the memory the write needs.
+WRITE_BATCH_ROWS = 65536
+
+#: Layer geometry type names, by shapely type id.
+_TYPE_NAMES = {0: "Point", 1: "LineString", 2: "LineString", 3: "Polygon",
+               4: "MultiPoint", 5: "MultiLineString", 6: "MultiPolygon"}
+
+
+class WkbLayer:
+    """A layer whose geometries are WKB (an Arrow binary column): written without GEOS.
+
+    ``table`` holds the attribute columns and the WKB in column ``geometry`` (last);
+    every geometry is of ``geometry_type``. :meth:`to_geodataframe` builds the shapely
+    geometries, for readers who want them.
+    """
+
+    def __init__(self, table: pd.DataFrame, crs: Any, geometry_type: str) -> None:
+        self.table = table
+        self.crs = crs
+        self.geometry_type = geometry_type
+
+    def __len__(self) -> int:
+        return len(self.table)
+
+    def to_geodataframe(self) -> gpd.GeoDataFrame:
+        """The layer as a GeoDataFrame (shapely geometries decoded from the WKB)."""
+        import shapely
+
+        geoms = shapely.from_wkb(self.table["geometry"].to_numpy(dtype=object))
+        frame = self.table.drop(columns="geometry")
+        frame["geometry"] = gpd.GeoSeries(geoms, index=frame.index, crs=self.crs)
+        return gpd.GeoDataFrame(frame, geometry="geometry", crs=self.crs, copy=False)
+
+
+def _gdal_crs(crs: Any) -> str | None:
+    """The CRS as pyogrio hands it to GDAL: ``EPSG:n`` where there is a code, else WKT1."""
+    if crs is None:
+        return None
+    epsg = crs.to_epsg()
+    return f"EPSG:{epsg}" if epsg else crs.to_wkt("WKT1_GDAL")
+
+
+def _arrow_stream(frame: Any) -> tuple[Any, dict[str, Any]] | None:
+    """The layer as a stream of Arrow batches with WKB geometry, and its geometry fields.
+
+    Covers :class:`WkbLayer` and layers of one geometry type whose columns Arrow converts
+    unambiguously (no ``object`` columns); returns None for anything else, which
+    pyogrio's own conversion writes. The fields and values written are those
+    ``pyogrio.write_dataframe`` writes.
+    """
+    import numpy as np
+    import pyarrow as pa
+    import shapely
+
+    wkb_given = isinstance(frame, WkbLayer)
+    if wkb_given:
+        if len(frame) == 0:
+            return None
+        geometry: dict[str, Any] = {"geometry_name": "geometry",
+                                    "geometry_type": frame.geometry_type,
+                                    "crs": _gdal_crs(frame.crs)}
+        geom_name, frame = "geometry", frame.table
+    else:
+        geom_name = None
+        if isinstance(frame, gpd.GeoDataFrame):
+            try:
+                geom_name = frame.geometry.name
+            except AttributeError:  # no active geometry column
+                return None
+    attrs = [c for c in frame.columns if c != geom_name]
+    if any(frame[c].dtype == object for c in attrs) or len(frame) == 0:
+        return None
+    if geom_name is not None and not wkb_given:
+        values = np.asarray(frame.geometry.values)
+        types = np.unique(shapely.get_type_id(values))
+        types = types[types >= 0]
+        if len(types) != 1 or int(types[0]) not in _TYPE_NAMES:
+            return None
+        has_z = bool(np.any(shapely.has_z(values)))
+        geometry = {"geometry_name": geom_name,
+                    "geometry_type": _TYPE_NAMES[int(types[0])] + (" Z" if has_z else ""),
+                    "crs": _gdal_crs(frame.crs)}
+    elif geom_name is None:
+        geometry = {}
+
+    def batch(start: int) -> pa.RecordBatch:
+        part = frame.iloc[start:start + WRITE_BATCH_ROWS]
+        cols = attrs + [geom_name] if wkb_given else attrs  # WKB is Arrow binary already
+        table = pa.Table.from_pandas(pd.DataFrame(part[cols], copy=False),
+                                     preserve_index=False)
+        for i, field in enumerate(table.schema):  # GDAL has no Arrow null type
+            if pa.types.is_null(field.type):
+                table = table.set_column(i, field.with_type(pa.string()),
+                                         table[i].cast(pa.string()))
+        if geom_name is not None and not wkb_given:
+            wkb = shapely.to_wkb(np.asarray(part.geometry.values))
+            table = table.append_column(geom_name, pa.array(wkb, type=pa.binary()))
+        return table.combine_chunks().to_batches()[0]
+
+    first = batch(0)
+    rest = (batch(start) for start in range(WRITE_BATCH_ROWS, len(frame), WRITE_BATCH_ROWS))
+    reader = pa.RecordBatchReader.from_batches(first.schema, itertools.chain([first], rest))
+    return reader, geometry
 
 
 def _first_line(text: str) -> str:
