@@ -266,3 +266,18 @@ def test_piece_core(monkeypatch, seed):
     _equal(a, b)
     for q in (0.0, 0.9, 1.0):
         _equal(*_both(monkeypatch, lambda: _ragged.range_quantile(K, scale, pf, pl, q)))
+    radius = rng.choice([50.0, 100.0, 400.0, 0.0, np.nan], 200)
+    sign = rng.choice([-1.0, 1.0], 200)
+    centre_m = s[pf] + rng.uniform(-10.0, 250.0, 200)
+    with np.errstate(divide="ignore"):  # radius 0
+        spans = _both(monkeypatch, lambda: circular.half_level_span(prof, pf, pl, centre_m,
+                                                                     radius, sign, scale))
+    assert (spans[0][1] - spans[0][0] > 0).sum() > 50
+    _equal(*spans)
+    # the only stations below half the level are the range's ends
+    K[0, 1000:1100] = 0.05
+    K[0, [1000, 1099]] = 0.0
+    one = np.array([1000]), np.array([1099]), s[[1050]], np.array([50.0]), np.ones(1)
+    ends = _both(monkeypatch, lambda: circular.half_level_span(prof, *one, np.zeros(1, int)))
+    _equal(*ends)
+    np.testing.assert_array_equal(np.r_[ends[0]], s[[1000, 1099]])

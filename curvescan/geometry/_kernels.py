@@ -225,6 +225,26 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
                     left[g] = i
         return left, right
 
+    @njit(parallel=True, cache=True, error_model="numpy")
+    def below_half_stops_kernel(K, scale, sign, radius, a, b, centre):
+        """Nearest station on each side of ``centre`` within ``a..b`` where
+        ``K[scale] * sign`` is below ``0.5 / radius`` (see ``circular.half_level_span``;
+        -1 and ``int64`` max where none), walking outward from the centre."""
+        n = a.shape[0]
+        left = np.full(n, -1, dtype=np.int64)
+        right = np.full(n, np.iinfo(np.int64).max, dtype=np.int64)
+        for g in prange(n):
+            bar = 0.5 / radius[g]
+            for i in range(centre[g] - 1, a[g] - 1, -1):
+                if K[scale[g], i] * sign[g] < bar:
+                    left[g] = i
+                    break
+            for i in range(centre[g] + 1, b[g] + 1):
+                if K[scale[g], i] * sign[g] < bar:
+                    right[g] = i
+                    break
+        return left, right
+
     @njit(cache=True)
     def _group_order(grp, n):
         """Positions of each group's members in index order: ``(order, first, counts)``."""

@@ -151,9 +151,15 @@ def half_level_span(prof: Profile, a: np.ndarray, b: np.ndarray, centre_m: np.nd
     curvature (times ``sign``) stays at or above half of ``1/radius``."""
     n = len(a)
     centre = np.clip(find(prof.gs, centre_m, side="left"), a, b)
-    idx, grp = expand(a, b - a + 1)
-    low = prof.k(scale[grp], idx) * sign[grp] < 0.5 / radius[grp]
-    left, right = stops_around(idx, grp, centre, low, n)
+    if kn.compiled():
+        left, right = kn.below_half_stops_kernel(
+            prof.K, np.asarray(scale, dtype=np.int64), np.asarray(sign, dtype=float),
+            np.asarray(radius, dtype=float), a.astype(np.int64), b.astype(np.int64),
+            centre.astype(np.int64))
+    else:
+        idx, grp = expand(a, b - a + 1)
+        low = prof.k(scale[grp], idx) * sign[grp] < 0.5 / radius[grp]
+        left, right = stops_around(idx, grp, centre, low, n)
     big = np.iinfo(np.int64).max
     last = len(prof.gs) - 1
     hi = np.where(right == big, prof.gs[b], prof.gs[np.minimum(right, last)])
