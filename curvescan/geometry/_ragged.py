@@ -6,8 +6,8 @@ import numpy as np
 
 from . import _kernels as kn
 
-__all__ = ["expand", "group_quantile", "range_quantile", "group_argmax", "find", "stops_around", "scatter_min",
-           "scatter_max", "TIE_M"]
+__all__ = ["expand", "group_quantile", "range_quantile", "group_argmax", "find", "stops_around",
+           "scatter_min", "scatter_max", "TIE_M"]
 
 #: Measures closer than this (m) count as equal: positions recomputed from different
 #: global offsets (another chain order, another partition) differ in the last bits.
