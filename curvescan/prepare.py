@@ -32,6 +32,7 @@ from scipy.spatial import cKDTree
 
 from .declare import Param
 from .errors import CRSError, DataQualityWarning, InputError
+from .geometry import _kernels as kn
 from .read import parse_crs
 
 __all__ = ["PARAMETERS", "Chains", "prepare", "working_crs", "point_scale"]
@@ -351,15 +352,21 @@ def _remove_spikes(xy: np.ndarray, vidx: np.ndarray, limit_rad: float, passes: i
     for _ in range(passes):
         if len(xy) < 3:
             break
-        dx = np.diff(xy[:, 0])
-        dy = np.diff(xy[:, 1])
-        dot = dx[1:] * dx[:-1]
-        dot += dy[1:] * dy[:-1]
-        cand = (np.flatnonzero(dot <= 0.0) if limit_rad > np.pi / 2 + 1e-9
-                else np.arange(len(dot)))
-        del dot
-        a = np.arctan2(dy[cand], dx[cand])  # the segment before vertex cand + 1
-        b = np.arctan2(dy[cand + 1], dx[cand + 1])  # the segment after it
+        if limit_rad <= np.pi / 2 + 1e-9:
+            cand = np.arange(len(xy) - 2)
+        elif kn.compiled():
+            cand = kn.spike_candidate_kernel(xy)
+        else:
+            dx = np.diff(xy[:, 0])
+            dy = np.diff(xy[:, 1])
+            dot = dx[1:] * dx[:-1]
+            dot += dy[1:] * dy[:-1]
+            cand = np.flatnonzero(dot <= 0.0)
+            del dot, dx, dy
+        x0, x1, x2 = xy[cand, 0], xy[cand + 1, 0], xy[cand + 2, 0]
+        y0, y1, y2 = xy[cand, 1], xy[cand + 1, 1], xy[cand + 2, 1]
+        a = np.arctan2(y1 - y0, x1 - x0)  # the segment before vertex cand + 1
+        b = np.arctan2(y2 - y1, x2 - x1)  # the segment after it
         turn = np.abs((b - a + np.pi) % (2 * np.pi) - np.pi)
         v = cand + 1
         interior = (vidx[v] == vidx[v - 1]) & (vidx[v] == vidx[v + 1])

@@ -281,3 +281,35 @@ def test_piece_core(monkeypatch, seed):
     ends = _both(monkeypatch, lambda: circular.half_level_span(prof, *one, np.zeros(1, int)))
     _equal(*ends)
     np.testing.assert_array_equal(np.r_[ends[0]], s[[1000, 1099]])
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_spike_candidates(monkeypatch, seed):
+    from curvescan.prepare import _remove_spikes
+
+    rng = np.random.default_rng(seed)
+    xy = np.cumsum(rng.normal(size=(3000, 2)), axis=0)
+    xy[::7] = xy[::7] + 40.0 * rng.normal(size=(len(xy[::7]), 2))  # spikes
+    vidx = np.repeat(np.arange(30), 100)
+    for limit in (np.radians(150.0), np.radians(60.0)):
+        a, b = _both(monkeypatch, lambda: _remove_spikes(xy.copy(), vidx.copy(), limit))
+        _equal(a, b)
+        assert len(a[0]) < len(xy)  # spikes were removed
+    got = kn.spike_candidate_kernel(xy)
+    dx, dy = np.diff(xy[:, 0]), np.diff(xy[:, 1])
+    _equal(got, np.flatnonzero(dx[1:] * dx[:-1] + dy[1:] * dy[:-1] <= 0.0))
+
+
+def test_linestring_wkb(monkeypatch):
+    import shapely
+
+    from curvescan.geometry.pieces import linestring_wkb
+
+    rng = np.random.default_rng(3)
+    count = rng.integers(2, 9, size=50)
+    offsets = np.r_[0, np.cumsum(count)]
+    xy = rng.normal(size=(int(offsets[-1]), 2)) * 1e5
+    a, b = _both(monkeypatch, lambda: linestring_wkb(xy, offsets))
+    assert a.type == b.type and a.equals(b)
+    lines = shapely.from_ragged_array(shapely.GeometryType.LINESTRING, xy, (offsets,))
+    assert a.to_pylist() == list(shapely.to_wkb(lines))

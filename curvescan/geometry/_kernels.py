@@ -160,6 +160,44 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
         return med
 
     @njit(cache=True)
+    def spike_candidate_kernel(xy):
+        """Turns ``i`` (at vertex ``i + 1``) whose two segments have a dot product not
+        above zero: ``np.flatnonzero(dot <= 0)`` of ``prepare._remove_spikes``."""
+        n = xy.shape[0] - 2
+        count = 0
+        for i in range(n):
+            dot = (xy[i + 2, 0] - xy[i + 1, 0]) * (xy[i + 1, 0] - xy[i, 0])
+            dot += (xy[i + 2, 1] - xy[i + 1, 1]) * (xy[i + 1, 1] - xy[i, 1])
+            if dot <= 0.0:
+                count += 1
+        out = np.empty(count, dtype=np.int64)
+        t = 0
+        for i in range(n):
+            dot = (xy[i + 2, 0] - xy[i + 1, 0]) * (xy[i + 1, 0] - xy[i, 0])
+            dot += (xy[i + 2, 1] - xy[i + 1, 1]) * (xy[i + 1, 1] - xy[i, 1])
+            if dot <= 0.0:
+                out[t] = i
+                t += 1
+        return out
+
+    @njit(parallel=True, cache=True)
+    def linestring_wkb_kernel(points, offsets, out):
+        """WKB of each LineString ``p`` (header, then its points' bytes from
+        ``points``, 16 a point) at byte ``9 p + 16 offsets[p]`` of ``out``."""
+        for p in prange(offsets.shape[0] - 1):
+            o = 9 * p + 16 * offsets[p]
+            cnt = offsets[p + 1] - offsets[p]
+            out[o] = 1
+            out[o + 1] = 2
+            out[o + 2] = 0
+            out[o + 3] = 0
+            out[o + 4] = 0
+            for q in range(4):
+                out[o + 5 + q] = (cnt >> (8 * q)) & 255
+            src = 16 * offsets[p]
+            out[o + 9:o + 9 + 16 * cnt] = points[src:src + 16 * cnt]
+
+    @njit(cache=True)
     def near_vertex_kernel(gs, gm):
         """Stations either side of each vertex (``searchsorted(gs, gm)`` clipped to
         ``1 .. n-1``, and the station before), as a sorted index array."""

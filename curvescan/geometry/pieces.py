@@ -10,6 +10,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import shapely
 
+from . import _kernels as kn
 from ._ragged import find
 from .resample import global_measure, interpolate
 
@@ -169,17 +170,25 @@ def linestring_wkb(xy: np.ndarray, offsets: np.ndarray) -> pa.Array:
     """WKB of the LineStrings ``xy[offsets[i]:offsets[i + 1]]`` as an Arrow binary array.
 
     Each is the 9-byte header (little-endian byte order mark, type 2, point count) and the
-    points as little-endian doubles: Arrow joins a header array and a point array, both
-    views of numpy buffers, element by element. Under 2 GB of points (else large_binary).
+    points as little-endian doubles: a compiled pass writes them into one Arrow buffer, or
+    (without numba) Arrow joins a header array and a point array, both views of numpy
+    buffers, element by element. Under 2 GB (else large_binary).
     """
     offsets = np.asarray(offsets, dtype=np.int64)
     count = np.diff(offsets)
+    points = np.ascontiguousarray(xy, dtype="<f8")
+    small = 16 * int(offsets[-1]) + 9 * len(count) < 2**31 - 1
+    kind, width = (pa.binary(), np.int32) if small else (pa.large_binary(), np.int64)
+    if kn.compiled():  # the same bytes, written in one pass into an Arrow buffer
+        out = pa.allocate_buffer(9 * len(count) + 16 * int(offsets[-1]))
+        kn.linestring_wkb_kernel(points.reshape(-1).view(np.uint8), offsets,
+                                 np.frombuffer(out, dtype=np.uint8))
+        starts = 9 * np.arange(len(offsets), dtype=np.int64) + 16 * offsets
+        return pa.Array.from_buffers(kind, len(count), [
+            None, pa.py_buffer(starts.astype(width)), out])
     header = np.empty((len(count), 9), dtype=np.uint8)
     header[:, :5] = (1, 2, 0, 0, 0)
     header[:, 5:] = count.astype("<u4").view(np.uint8).reshape(-1, 4)
-    points = np.ascontiguousarray(xy, dtype="<f8")
-    small = 16 * int(offsets[-1]) < 2**31 - 1
-    kind, width = (pa.binary(), np.int32) if small else (pa.large_binary(), np.int64)
     heads = pa.Array.from_buffers(kind, len(count), [
         None, pa.py_buffer((9 * np.arange(len(offsets))).astype(width)), pa.py_buffer(header)])
     body = pa.Array.from_buffers(kind, len(count), [
