@@ -169,34 +169,37 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
             gX, gY, gg = X[pts], Y[pts], group[pts]
             JTJ, JTd = _normal(gX, gY, gg, n_groups, a, b, r)
         # each group's 3x3 system is solved on its own: solving only the active ones
-        # gives them the same steps
+        # gives them the same steps; the bookkeeping too touches only the active groups
         JTJ, JTd = JTJ[act], JTd[act]
         scale = np.trace(JTJ, axis1=1, axis2=2)[:, None, None] + 1e-12
-        step = np.zeros((n_groups, 3))
         with np.errstate(invalid="ignore", over="ignore"):
             try:
-                step[act] = np.linalg.solve(JTJ + lam[act, None, None] * eye * scale,
-                                            -JTd[:, :, None])[:, :, 0]
+                step = np.linalg.solve(JTJ + lam[act, None, None] * eye * scale,
+                                       -JTd[:, :, None])[:, :, 0]
             except np.linalg.LinAlgError:
-                step[:] = 0.0
-        step = np.where(np.isfinite(step) & active[:, None], step, 0.0)
-        na, nb, nr = a + step[:, 0], b + step[:, 1], r + step[:, 2]
-        new_cost = cost.copy()
+                step = np.zeros((act.size, 3))
+        step = np.where(np.isfinite(step), step, 0.0)
+        na, nb, nr = a.copy(), b.copy(), r.copy()  # trial circles (used where active)
+        na[act] += step[:, 0]
+        nb[act] += step[:, 1]
+        nr[act] += step[:, 2]
         if use:
             JTJ_new, JTd_new, trial = kn.normal_kernel(gX, gY, gg, active, na, nb, nr, n_groups)
-            new_cost[active] = trial[active]
+            new_cost = trial[act]
         else:
-            new_cost[active] = _cost(gX, gY, gg, n_groups, na, nb, nr, active)[active]
-        better = active & (new_cost <= cost)
+            new_cost = _cost(gX, gY, gg, n_groups, na, nb, nr, active)[act]
+        better = new_cost <= cost[act]
+        took = act[better]
         if use:
-            JTJ_at[better], JTd_at[better] = JTJ_new[better], JTd_new[better]
-        a, b, r = np.where(better, na, a), np.where(better, nb, b), np.where(better, nr, r)
-        cost = np.where(better, new_cost, cost)
-        lam = np.where(better, lam * 0.3, lam * 10.0)
+            JTJ_at[took], JTd_at[took] = JTJ_new[took], JTd_new[took]
+        a[took], b[took], r[took] = na[took], nb[took], nr[took]
+        cost[took] = new_cost[better]
+        lam_act = np.where(better, lam[act] * 0.3, lam[act] * 10.0)
+        lam[act] = lam_act
         # a group is done when its step is negligible or damping has given up
         big = np.maximum(np.maximum(np.abs(step[:, 0]), np.abs(step[:, 1])), np.abs(step[:, 2]))
-        tiny = big <= 1e-10 * (np.abs(r) + 1.0)
-        active &= ~(tiny | (lam > 1e6))
+        tiny = big <= 1e-10 * (np.abs(r[act]) + 1.0)
+        active[act] = ~(tiny | (lam_act > 1e6))
     if use:
         JTJ = JTJ_at
     else:
