@@ -186,6 +186,63 @@ def test_streamed_geopackage_matches_in_memory_counts(tmp_path, network, single,
     assert ids.is_unique
 
 
+def _gpkg_layers(path) -> dict:
+    import pyogrio
+
+    return {name: pyogrio.read_dataframe(path, layer=name)
+            for name, _ in pyogrio.list_layers(path) if name != "run"}  # run: times differ
+
+
+def test_streamed_geopackage_equals_the_in_memory_result(tmp_path, network, single, cluster,
+                                                         monkeypatch):
+    # same partitions give the same ids, so the streamed file (ranked layers spilled to
+    # disk, ranked from their key columns, written in chunks of 7 rows) must hold exactly
+    # the rows of the in-memory partitioned result, hazards and winter in rank order
+    import pyogrio
+
+    from curvescan import parallel
+    from curvescan.algorithms import run_scan
+    from curvescan.report import summary_lines
+
+    monkeypatch.setattr(parallel, "RANK_CHUNK", 7)
+    monkeypatch.setattr(parallel, "TOP_ROWS", 5)
+    kw = dict(speed_field="maxspeed", partition_features=15,
+              scheduler=cluster.scheduler_address)
+    calls = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        memory = scan(network, **kw)
+        memory.to_gpkg(tmp_path / "memory.gpkg")
+        single.to_gpkg(tmp_path / "single.gpkg")
+        streamed = run_scan(network, tmp_path / "streamed.gpkg",
+                            progress=lambda stage, f: calls.append((stage, f)), **kw)
+    got, want = _gpkg_layers(tmp_path / "streamed.gpkg"), _gpkg_layers(tmp_path / "memory.gpkg")
+    assert list(got) == list(want) == ["curves", "segments", "hazards", "winter",
+                                       "layer_styles"]
+    assert len(want["hazards"]) > 2 * 7 and len(want["winter"]) > 2 * 7
+    for name in want:  # layer styles too (but the time they were written)
+        a, b = (x[name].drop(columns=["update_time"], errors="ignore") for x in (got, want))
+        pd.testing.assert_frame_equal(a, b, check_exact=True, obj=name)
+    assert list(got["hazards"]["severity_rank"]) == list(range(1, len(got["hazards"]) + 1))
+    # field types and geometry types as a single-process GeoPackage has them
+    for name in ["curves", "segments", "hazards", "winter"]:
+        a = pyogrio.read_info(tmp_path / "streamed.gpkg", layer=name)
+        b = pyogrio.read_info(tmp_path / "single.gpkg", layer=name)
+        assert list(a["fields"]) == list(b["fields"]), name
+        assert list(a["dtypes"]) == list(b["dtypes"]), name
+        assert a["geometry_type"] == b["geometry_type"], name
+    # the result keeps the top rows and the counts; the summary quotes the full count
+    assert len(streamed.hazards) == 5
+    assert list(streamed.hazards["curve_id"]) == list(memory.hazards["curve_id"][:5])
+    assert len(streamed.curves) == len(single.curves)
+    assert f"hazard curves: {len(single.hazards)}" in summary_lines(streamed)
+    # the progress bar runs over the partitions and the ranked write, up to 1
+    fractions = [f for _, f in calls]
+    assert fractions == sorted(fractions) and fractions[-1] == pytest.approx(1.0)
+    stages = {stage.split(" ")[0] for stage, _ in calls}
+    assert {"survey", "partition", "writing"} <= stages
+
+
 def test_declared_options_reach_the_command_line():
     from click.testing import CliRunner
 
