@@ -161,6 +161,19 @@ def test_partitioned_geoparquet_folder(tmp_path, network, cluster):
     assert_same_layers(single, parted)
 
 
+def test_one_worker_runs_in_this_process(tmp_path, network):
+    # --partition-features without workers or scheduler: a local cluster in this process
+    from curvescan import parallel
+    from curvescan.config import make_config
+
+    client, cluster = parallel._client(make_config(partition_features=20))
+    try:
+        assert cluster.processes is False and len(cluster.workers) == 1
+    finally:
+        client.close()
+        cluster.close()
+
+
 def test_missing_field_in_a_partition_is_one_clear_error(network, cluster):
     with pytest.raises(InputError, match="speed-field"):
         scan(network, speed_field="no_such_field", partition_features=30,
