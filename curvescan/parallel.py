@@ -344,7 +344,7 @@ def _emit(messages: list, seen: set) -> None:
 
 def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None,
                    sink: Callable[[int, dict], None], arrow: bool = False) -> dict:
-    """Run the four passes; hand each partition's result to ``sink`` as it completes.
+    """Run the four passes; hand the partitions' results to ``sink`` in partition order.
 
     Returns the parts of the run record that are known once all partitions are done.
     """
@@ -397,20 +397,38 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
                                  int(offsets[q]), rows, pure=False)
                 for q, rows in enumerate(handover) if rows is not None}
         dem_path = None if dem is None else str(dem)
-        futures = [client.submit(scan_task, light, p, src.payload(p), config, crs, note,
-                                 dem_path, plans[p], [hand[q] for q in plans[p].sources],
-                                 arrow, pure=False)
-                   for p in range(src.n)]
-        index = {f.key: i for i, f in enumerate(futures)}
+        # ids are given in partition order, so results are handed to ``sink`` in that
+        # order; partitions are submitted in order, and only while fewer than ``window``
+        # are submitted but not yet handed on: at most that many results wait on the client
+        window = 2 * max(1, len(client.scheduler_info().get("workers", {}))) + 1
+        queue, index, pending = as_completed(), {}, {}
+        submitted = delivered = 0
         part_timings: dict[str, float] = {}
-        for k, fut in enumerate(as_completed(futures), 1):
+
+        def top_up() -> None:
+            nonlocal submitted
+            while submitted < src.n and submitted - delivered < window:
+                p = submitted
+                fut = client.submit(scan_task, light, p, src.payload(p), config, crs, note,
+                                    dem_path, plans[p], [hand[q] for q in plans[p].sources],
+                                    arrow, pure=False)
+                index[fut.key] = p
+                queue.add(fut)
+                submitted += 1
+
+        top_up()
+        for k, fut in enumerate(queue, 1):
             out = fut.result()
             fut.release()
             _emit(out["messages"], seen)
             for name, v in out["timings"].items():
                 part_timings[name] = round(part_timings.get(name, 0.0) + v, 4)
-            sink(index[fut.key], out)
+            pending[index.pop(fut.key)] = out
+            while delivered in pending:
+                sink(delivered, pending.pop(delivered))
+                delivered += 1
             report(f"partition {k}/{src.n}", 0.2 + 0.8 * k / src.n)
+            top_up()
         timings["scan"] = round(time.perf_counter() - t, 4)
     finally:
         client.close()
@@ -449,17 +467,9 @@ class _Merger:
         self.speed: dict[str, Any] = {}
         self.terrain: dict[str, Any] = {}
         self.assessment: dict[str, Any] = {}
-        self.pending: dict[int, dict] = {}
-        self.done = 0
 
     def __call__(self, index: int, out: dict) -> None:
-        # renumber in partition order so that ids do not depend on completion order
-        self.pending[index] = out
-        while self.done in self.pending:
-            self._take(self.pending.pop(self.done))
-            self.done += 1
-
-    def _take(self, out: dict) -> None:
+        """Take partition ``index``'s result (partitions come in order: ids follow it)."""
         if out["layers"] is None:
             return
         named, summary = out["layers"]
@@ -516,7 +526,7 @@ class _Streamer(_Merger):
     def _layer(self, name: str, layer: Any, shift: dict[str, int]) -> None:
         layer = layer.shifted(shift)
         if name in RANKED:
-            self.empty.setdefault(name, layer.head(0))
+            self.empty.setdefault(name, layer.empty())
             spill = self.spills.get(name) or self.spills.setdefault(name, self.sink.spill(name))
             keys = layer.frame(RANKED[name][1])
             keys["_row"] = np.arange(spill.n, spill.n + len(layer), dtype=np.int64)

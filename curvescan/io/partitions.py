@@ -240,13 +240,21 @@ class ArrowLayer:
         return ArrowLayer(self.table.slice(0, n), self.geometry_type, self.crs)
 
     def frame(self, columns: list[str]) -> pd.DataFrame:
-        """The given columns (those present) as a plain DataFrame, no geometry."""
-        return self.table.select([c for c in columns if c in self.table.column_names]) \
-            .to_pandas()
+        """The given columns (those present) as a plain DataFrame, no geometry.
+
+        A copy: a zero-copy column would keep alive the buffer it lies in, which may hold
+        the whole partition (a received message, or a pandas block of every float column).
+        """
+        table = self.table.select([c for c in columns if c in self.table.column_names])
+        return table.to_pandas().copy(deep=True)
+
+    def empty(self) -> "ArrowLayer":
+        """No rows, the same schema (and no reference to this layer's buffers)."""
+        return ArrowLayer(self.table.schema.empty_table(), self.geometry_type, self.crs)
 
     def to_frame(self) -> gpd.GeoDataFrame | pd.DataFrame:
-        """Back to a (Geo)DataFrame; text columns come back as pandas strings."""
-        frame = self.table.to_pandas()
+        """Back to a (Geo)DataFrame (a copy); text columns come back as Python strings."""
+        frame = self.table.to_pandas().copy(deep=True)
         if self.geometry_type is None:
             return frame
         geom = shapely.from_wkb(frame.pop("geometry").to_numpy(dtype=object))
@@ -354,7 +362,8 @@ class GpkgAppender:
         if not isinstance(frame, ArrowLayer):
             frame = _text_columns(frame)
         if len(frame) == 0:
-            self.templates.setdefault(name, frame)
+            self.templates.setdefault(name, frame.empty() if isinstance(frame, ArrowLayer)
+                                      else frame)
             return
         kwargs: dict[str, Any] = {"layer": name, "driver": "GPKG",
                                   "append": os.path.exists(self.tmp)}
