@@ -256,6 +256,20 @@ def test_streamed_geopackage_equals_the_in_memory_result(tmp_path, network, sing
     assert {"survey", "partition", "writing"} <= stages
 
 
+def test_spill_gives_rows_in_the_order_asked(tmp_path):
+    # rows spread over several appended tables come back in any asked order
+    import pyarrow as pa
+
+    from curvescan.io.partitions import ArrowLayer, ArrowSpill
+
+    spill = ArrowSpill(tmp_path, "x")
+    for start, n in ((0, 5), (5, 0), (5, 7), (12, 3)):
+        spill.append(ArrowLayer(pa.table({"v": np.arange(start, start + n)}), None, None))
+    rows = np.array([14, 0, 6, 5, 11, 3, 12, 13, 1])
+    assert spill.take(rows).table["v"].to_pylist() == rows.tolist()
+    assert spill.take(np.array([], dtype=np.int64)).table.num_rows == 0
+
+
 def test_declared_options_reach_the_command_line():
     from click.testing import CliRunner
 

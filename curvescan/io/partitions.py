@@ -322,9 +322,30 @@ class ArrowSpill:
         if self.writer is not None:
             self.writer.close()
             self.writer = None
+        rows = np.asarray(rows, dtype=np.int64)
         with pa.memory_map(self.path) as src:
-            table = pa.ipc.open_file(src).read_all().take(pa.array(rows))
+            reader = pa.ipc.open_file(src)
+            # take batch by batch: a take over the whole (chunked) table would first
+            # concatenate every batch, that is copy the whole file into memory
+            sizes = [reader.get_batch(i).num_rows for i in range(reader.num_record_batches)]
+            starts = np.concatenate([[0], np.cumsum(sizes)])
+            batch = np.searchsorted(starts, rows, side="right") - 1
+            by_batch = np.argsort(batch, kind="stable")
+            pieces = [reader.get_batch(int(b)).take(pa.array(rows[sel] - starts[b]))
+                      for b, sel in _groups(batch, by_batch)]
+            table = pa.Table.from_batches(pieces, schema=reader.schema)
+            back = np.empty_like(by_batch)
+            back[by_batch] = np.arange(len(rows))
+            table = table.combine_chunks().take(pa.array(back))
         return ArrowLayer(table, self.geometry_type, self.crs)
+
+
+def _groups(labels: np.ndarray, order: np.ndarray):
+    """``(label, indices)`` for each label, ``order`` sorting ``labels`` (stable)."""
+    sorted_labels = labels[order]
+    cut = np.flatnonzero(np.diff(sorted_labels)) + 1
+    for sel in np.split(order, cut) if len(order) else []:
+        yield int(labels[sel[0]]), sel
 
 
 class GpkgAppender:
