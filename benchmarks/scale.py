@@ -174,6 +174,7 @@ def child_scan(path: str, out: str, params: str) -> dict:
     timings["write+rest"] = round(total - timings.get("total", 0.0), 3)
     run = result.run  # counts from the run record: reading result.curves would decode
     return {"total_s": total, "base_mb": base, "timings": timings,  # the geometries
+            "cpu_s": time.process_time(),
             "curves": int(run["curves"] if "curves" in run else len(result.curves)),
             "segments": int(run["segments"] if "segments" in run else len(result.segments))}
 
@@ -183,7 +184,9 @@ def run_child(kind: str, *args: str) -> dict:
     code = (f"import json, sys, resource; sys.path.insert(0, {str(Path(__file__).parent)!r});"
             f"import scale; r = scale.child_{kind}(*sys.argv[1:]);"
             "r['peak_mb'] = scale._status_mb('VmHWM:');"
-            "r['worker_peak_mb'] = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024;"
+            "c = resource.getrusage(resource.RUSAGE_CHILDREN);"
+            "r['worker_peak_mb'] = c.ru_maxrss / 1024;"
+            "r['worker_cpu_s'] = c.ru_utime + c.ru_stime;"
             "print('@@' + json.dumps(r))")
     t = time.perf_counter()
     proc = subprocess.run([sys.executable, "-c", code, *args], capture_output=True, text=True)
@@ -217,6 +220,7 @@ def bench(n: int, args) -> dict:
         p = dict(params, workers=w, partition_features=args.partition_features)
         row[f"parts_w{w}"] = run_child("scan", str(paths["folder"]),
                                        str(tmp / f"scan_parts_{n}_w{w}.gpkg"), json.dumps(p))
+        row[f"parts_w{w}"]["load"] = os.getloadavg()  # others' work on the cores skews it
     return row
 
 
@@ -238,10 +242,18 @@ def show(row: dict) -> None:
                      f"{(r['peak_mb'] - r['base_mb']) / max(io['frame_mb'], 1):.2f}")
         workers = (f", largest worker process {r['worker_peak_mb']:.0f} MB"
                    if r.get("worker_peak_mb", 0) > 1 else "")
-        print(f"({key}) {r['total_s']:.2f} s, peak {r['peak_mb']:.0f} MB "
+        if r.get("worker_cpu_s", 0) > 1:  # the client's own CPU is the serial share
+            workers += (f", CPU: client {r['cpu_s']:.1f} s, worker processes "
+                        f"{r['worker_cpu_s']:.1f} s")
+        load = f", load after {r['load'][0]:.1f}" if "load" in r else ""
+        print(f"({key}) {r['total_s']:.2f} s{load}, peak {r['peak_mb']:.0f} MB "
               f"(interpreter {r['base_mb']:.0f} MB){workers}{extra}; curves {r['curves']}")
         print("    stages: " + ", ".join(f"{k} {v:.2f}" for k, v in r["timings"].items()
                                          if isinstance(v, (int, float))))
+    parts = sorted((int(k[7:]), r["total_s"]) for k, r in row.items()
+                   if k.startswith("parts_w"))
+    for w, t in parts[1:]:
+        print(f"{w} workers: {parts[0][1] / t:.2f} times faster than {parts[0][0]}")
 
 
 def main(argv: list[str] | None = None) -> None:

@@ -22,8 +22,10 @@ The result equals a single-process scan (ids aside) because chains are never cut
 
 Only part ends (32 bytes a part) and results travel to the client; every worker reads
 its own partition. Memory on a worker is bounded by the partition size; on the client by
-the part-end arrays, plus the output when an in-memory result is asked for (the command
-line streams the layers into the GeoPackage instead, see :func:`scan_to_gpkg`).
+the part-end arrays, plus the output when an in-memory result is asked for. The command
+line streams every layer into the GeoPackage instead (:func:`scan_to_gpkg`): results come
+as Arrow tables, and the ranked layers wait on disk until they can be ranked from their
+ranking columns alone (:class:`_Streamer`), so the client keeps about 60 bytes a curve.
 """
 
 from __future__ import annotations
@@ -170,8 +172,13 @@ class _Plan:
 
 
 def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, dem: Any,
-              plan: _Plan, handed: list) -> dict:
-    """Scan the chains homed in partition ``i`` (second pass)."""
+              plan: _Plan, handed: list, arrow: bool = False) -> dict:
+    """Scan the chains homed in partition ``i`` (second pass).
+
+    ``layers`` of the returned dict is ``(named layers, assessment summary)``; with
+    ``arrow`` the layers are :class:`curvescan.io.partitions.ArrowLayer` tables, made here
+    so that the client neither unpickles nor encodes a geometry.
+    """
     import pandas as pd
 
     from .pipeline import scan_chains
@@ -209,7 +216,17 @@ def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, 
         timings["prepare"] = round(time.perf_counter() - t, 4)
         layers, speed, terrain_record = scan_chains(frame, chains, config, dem,
                                                     lambda *_: None, timings)
-    return {"layers": layers, "speed": speed, "terrain": terrain_record,
+        curves, segments, hazards, extra, summary = layers
+        named = {"curves": curves, "segments": segments, "hazards": hazards, **extra}
+        del layers, curves, segments, hazards, extra
+        if arrow:
+            from .io.partitions import ArrowLayer
+
+            t = time.perf_counter()
+            for name in list(named):
+                named[name] = ArrowLayer.from_frame(named[name])
+            timings["to_arrow"] = round(time.perf_counter() - t, 4)
+    return {"layers": (named, summary), "speed": speed, "terrain": terrain_record,
             "chains": chains.n_chains, "timings": timings,
             "messages": [(w.category, str(w.message)) for w in caught]}
 
@@ -237,9 +254,12 @@ def _client(config: Any):
         dask.config.set({"distributed.logging.distributed": "critical",
                          "distributed.admin.log-format": "%(message)s"})
         logging.getLogger("distributed").setLevel(logging.CRITICAL)
+    # one compute thread per worker process: numba's parallel kernels too (dask already
+    # sets OMP/MKL/OpenBLAS threads to 1), else N workers run 2N threads on N cores
+    extra = {"env": {"NUMBA_NUM_THREADS": "1"}} if processes else {}
     cluster = LocalCluster(n_workers=config.workers, threads_per_worker=1,
                            processes=processes, dashboard_address=None,
-                           silence_logs=40)
+                           silence_logs=40, **extra)
     return Client(cluster), cluster
 
 
@@ -324,8 +344,8 @@ def _emit(messages: list, seen: set) -> None:
 
 
 def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None,
-                   sink: Callable[[int, dict], None]) -> dict:
-    """Run the four passes; hand each partition's result to ``sink`` as it completes.
+                   sink: Callable[[int, dict], None], arrow: bool = False) -> dict:
+    """Run the four passes; hand the partitions' results to ``sink`` in partition order.
 
     Returns the parts of the run record that are known once all partitions are done.
     """
@@ -378,20 +398,38 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
                                  int(offsets[q]), rows, pure=False)
                 for q, rows in enumerate(handover) if rows is not None}
         dem_path = None if dem is None else str(dem)
-        futures = [client.submit(scan_task, light, p, src.payload(p), config, crs, note,
-                                 dem_path, plans[p], [hand[q] for q in plans[p].sources],
-                                 pure=False)
-                   for p in range(src.n)]
-        index = {f.key: i for i, f in enumerate(futures)}
+        # ids are given in partition order, so results are handed to ``sink`` in that
+        # order; partitions are submitted in order, and only while fewer than ``window``
+        # are submitted but not yet handed on: at most that many results wait on the client
+        window = 2 * max(1, len(client.scheduler_info().get("workers", {}))) + 1
+        queue, index, pending = as_completed(), {}, {}
+        submitted = delivered = 0
         part_timings: dict[str, float] = {}
-        for k, fut in enumerate(as_completed(futures), 1):
+
+        def top_up() -> None:
+            nonlocal submitted
+            while submitted < src.n and submitted - delivered < window:
+                p = submitted
+                fut = client.submit(scan_task, light, p, src.payload(p), config, crs, note,
+                                    dem_path, plans[p], [hand[q] for q in plans[p].sources],
+                                    arrow, pure=False)
+                index[fut.key] = p
+                queue.add(fut)
+                submitted += 1
+
+        top_up()
+        for k, fut in enumerate(queue, 1):
             out = fut.result()
             fut.release()
             _emit(out["messages"], seen)
             for name, v in out["timings"].items():
                 part_timings[name] = round(part_timings.get(name, 0.0) + v, 4)
-            sink(index[fut.key], out)
+            pending[index.pop(fut.key)] = out
+            while delivered in pending:
+                sink(delivered, pending.pop(delivered))
+                delivered += 1
             report(f"partition {k}/{src.n}", 0.2 + 0.8 * k / src.n)
+            top_up()
         timings["scan"] = round(time.perf_counter() - t, 4)
     finally:
         client.close()
@@ -403,56 +441,53 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
             "timings": timings, "task_timings": part_timings, "messages": sorted(seen)}
 
 
-class _Merger:
-    """Renumber ids across partitions; stream or keep curves and segments, keep the rest.
+#: Layers ranked over all partitions: rank column and the columns that decide the order
+#: (:func:`curvescan.assess.rerank`).
+RANKED = {"hazards": ("severity_rank", ["curve_id", "mildest_condition", "posted_kmh",
+                                        "limit_kmh"]),
+          "winter": ("winter_rank", ["curve_id", "winter_score"])}
 
-    Hazards and further layers (``winter``) are always kept, so that their ranks can be
-    made global (:func:`curvescan.assess.rerank`) once all partitions are in.
+#: Rows of a ranked layer written at a time once the ranks are known.
+RANK_CHUNK = 50_000
+
+#: Rows of each ranked layer a streamed result keeps in memory (for the summary).
+TOP_ROWS = 100
+
+
+class _Merger:
+    """Renumber ids across partitions and keep every layer in memory.
+
+    Hazards and further layers (``winter``) get ranks over all partitions
+    (:func:`curvescan.assess.rerank`) once all partitions are in.
     """
 
-    def __init__(self, keep: bool, write: Callable[[str, Any], None] | None = None) -> None:
-        self.keep, self.write = keep, write
+    def __init__(self) -> None:
         self.next = {"curve_id": 0, "segment_id": 0, "chain_id": 0}
         self.kept: dict[str, list] = {}
         self.counts: dict[str, int] = {}
         self.speed: dict[str, Any] = {}
         self.terrain: dict[str, Any] = {}
         self.assessment: dict[str, Any] = {}
-        self.summary: list = []
-        self.pending: dict[int, dict] = {}
-        self.done = 0
 
     def __call__(self, index: int, out: dict) -> None:
-        # renumber in partition order so that ids do not depend on completion order
-        self.pending[index] = out
-        while self.done in self.pending:
-            self._take(self.pending.pop(self.done))
-            self.done += 1
-
-    def _take(self, out: dict) -> None:
+        """Take partition ``index``'s result (partitions come in order: ids follow it)."""
         if out["layers"] is None:
             return
-        curves, segments, hazards, extra, summary = out["layers"]
-        named = {"curves": curves, "segments": segments, "hazards": hazards, **extra}
+        named, summary = out["layers"]
         shift = dict(self.next)
         for name, layer in named.items():
-            cols = {c: layer[c] + shift[c] for c in shift if c in layer.columns}
-            layer = layer.assign(**cols) if cols else layer
             self.counts[name] = self.counts.get(name, 0) + len(layer)
-            if name in ("curves", "segments") and not self.keep:
-                self.write(name, layer)
-                if name == "curves":
-                    keep = [c for c in layer.columns if c in ("curve_id", "posted_kmh")
-                            or (c.startswith("v_") and c.endswith("_kmh"))]
-                    self.summary.append(pd_frame(layer[keep]))
-            else:
-                self.kept.setdefault(name, []).append(layer)
-        self.next["curve_id"] += len(curves)
-        self.next["segment_id"] += len(segments)
+            self._layer(name, layer, {c: shift[c] for c in shift if c in layer.columns})
+        self.next["curve_id"] += len(named["curves"])
+        self.next["segment_id"] += len(named["segments"])
         self.next["chain_id"] += out["chains"]
         _merge_report(self.speed, out["speed"])
         _merge_report(self.assessment, summary)
         self.terrain = out["terrain"] or self.terrain
+
+    def _layer(self, name: str, layer: Any, shift: dict[str, int]) -> None:
+        cols = {c: layer[c] + by for c, by in shift.items()}
+        self.kept.setdefault(name, []).append(layer.assign(**cols) if cols else layer)
 
     def layers(self, crs: Any, config: Any) -> dict[str, Any]:
         """Return the kept layers, concatenated; hazards and winter re-ranked over all parts."""
@@ -466,11 +501,97 @@ class _Merger:
         return out
 
 
-def pd_frame(frame: Any) -> Any:
-    """Return a plain DataFrame copy of ``frame``."""
-    import pandas as pd
+class _Streamer(_Merger):
+    """Renumber ids across partitions and stream every layer into a :class:`GpkgAppender`.
 
-    return pd.DataFrame(frame).copy()
+    Partitions arrive as Arrow tables (``scan_task(arrow=True)``). ``curves``, ``segments``
+    and unranked layers are appended as they come. Ranked layers (:data:`RANKED`) wait in
+    an :class:`ArrowSpill` on disk while the client keeps only their ranking columns (about
+    40 bytes a row); :meth:`write_ranked` then ranks those columns over all partitions and
+    writes the rows in rank order, :data:`RANK_CHUNK` at a time. Held in memory: the
+    ranking columns, ``curve_id`` and ``posted_kmh`` of every curve (for the summary) and
+    the first :data:`TOP_ROWS` rows of each ranked layer.
+    """
+
+    def __init__(self, sink: Any) -> None:
+        super().__init__()
+        self.sink = sink
+        self.spills: dict[str, Any] = {}
+        self.keys: dict[str, list] = {}
+        self.empty: dict[str, Any] = {}
+        self.summary: list = []
+        self.top: dict[str, Any] = {}
+        self.columns: dict[str, list] = {}
+        self.mildest: dict[str, set] = {}
+
+    def _layer(self, name: str, layer: Any, shift: dict[str, int]) -> None:
+        layer = layer.shifted(shift)
+        if name in RANKED:
+            self.empty.setdefault(name, layer.empty())
+            spill = self.spills.get(name) or self.spills.setdefault(name, self.sink.spill(name))
+            keys = layer.frame(RANKED[name][1])
+            keys["_row"] = np.arange(spill.n, spill.n + len(layer), dtype=np.int64)
+            self.keys.setdefault(name, []).append(keys)
+            spill.append(layer)
+            self._style_values(name, layer)
+            return
+        self.sink.append(name, layer)
+        if name == "curves":
+            self.summary.append(layer.frame(["curve_id", "posted_kmh"]))
+        self._style_values(name, layer)
+
+    def _style_values(self, name: str, layer: Any) -> None:
+        self.columns.setdefault(name, layer.columns)
+        if "mildest_condition" in layer.columns:
+            self.mildest.setdefault(name, set()).update(
+                v for v in layer.table["mildest_condition"].unique().to_pylist() if v is not None)
+
+    def style_frames(self) -> dict[str, Any]:
+        """Stand-ins of the written layers for :func:`curvescan.styles.write_styles`: their
+        columns and every ``mildest_condition`` value, which is all a style depends on."""
+        import pandas as pd
+
+        out = {}
+        for name, columns in self.columns.items():
+            values = sorted(self.mildest.get(name, ()))
+            frame = pd.DataFrame(index=range(len(values)), columns=columns)
+            if "mildest_condition" in columns:
+                frame["mildest_condition"] = values
+            out[name] = frame
+        return out
+
+    def write_ranked(self, curve_columns: list[str], config: Any,
+                     report: Progress) -> None:
+        """Rank the spilled layers over all partitions; write them in rank order."""
+        import pandas as pd
+
+        from . import assess
+
+        keys = {name: pd.concat(frames, ignore_index=True)
+                for name, frames in self.keys.items()}
+        self.keys.clear()
+        hz, winter = keys.get("hazards"), keys.get("winter")
+        if hz is not None and winter is not None and "mildest_condition" in hz.columns:
+            names = assess.condition_order(pd.DataFrame(columns=curve_columns), config)
+            keys["hazards"], keys["winter"] = assess.rerank(hz, winter, names)
+        total = max(1, sum(len(k) for k in keys.values()))
+        done = 0
+        for name, order in keys.items():
+            rank_col = RANKED[name][0]
+            rows = order["_row"].to_numpy()
+            ranks = order[rank_col].to_numpy() if rank_col in order else None
+            if not len(rows):
+                self.sink.append(name, self.empty[name])
+            for a in range(0, len(rows), RANK_CHUNK):
+                chunk = self.spills[name].take(rows[a:a + RANK_CHUNK])
+                if ranks is not None and rank_col in chunk.columns:
+                    chunk = chunk.replaced(rank_col, ranks[a:a + RANK_CHUNK])
+                if a == 0:
+                    self.top[name] = chunk.head(TOP_ROWS).to_frame()
+                self.sink.append(name, chunk)
+                done += min(RANK_CHUNK, len(rows) - a)
+                report(f"writing {name}", done / total)
+            self.top.setdefault(name, self.empty[name].to_frame())
 
 
 def _merge_report(total: dict, part: dict) -> None:
@@ -547,26 +668,29 @@ def scan_partitioned(source: Any, *, dem: Any = None, progress: Progress | None 
     Called by :func:`curvescan.scan` when ``workers > 1``, a ``scheduler`` or a
     ``partition_features`` is given, or the source is a GeoParquet folder.
     """
-    merger = _Merger(keep=True)
+    merger = _Merger()
     info = run_partitions(source, config, dem, progress, merger)
     return _finish(source, dem, config, info, merger, merger.layers(info["input_crs"], config))
 
 
 def scan_to_gpkg(source: Any, output: Any, *, dem: Any = None, overwrite: bool = False,
                  progress: Progress | None = None, **parameters: Any) -> Any:
-    """Scan partition by partition, streaming ``curves`` and ``segments`` into ``output``.
+    """Scan partition by partition, streaming every layer into ``output``.
 
-    Curves and segments are appended to the GeoPackage as partitions complete, so memory
-    stays bounded by the partition size; hazards and winter layers (a small share of the
-    curves) are kept, ranked over all partitions, and written at the end. The returned
-    result holds the run record, the hazards and the curves' speed columns (enough for the
-    summary) but no ``segments`` rows.
+    Workers hand back Arrow tables; ``curves`` and ``segments`` are appended to the
+    GeoPackage as partitions complete; ``hazards`` and ``winter`` wait on disk until all
+    partitions are in, are ranked from their ranking columns alone and written in rank
+    order (see :class:`_Streamer`). Client memory is bounded by a partition's result
+    plus about 60 bytes a curve. The returned result holds the run record, ``curve_id``
+    and ``posted_kmh`` of every curve, the first :data:`TOP_ROWS` rows of ``hazards`` and
+    ``winter`` (the run record has the full counts) and no ``segments`` rows.
     """
     import pandas as pd
 
     from .config import make_config
     from .io.partitions import GpkgAppender
     from .pipeline import ScanResult
+    from .styles import write_styles
 
     config = make_config(parameters.pop("config", None), **parameters)
     from . import assess
@@ -574,17 +698,24 @@ def scan_to_gpkg(source: Any, output: Any, *, dem: Any = None, overwrite: bool =
     probe = ScanResult(curves=pd.DataFrame(), segments=pd.DataFrame(), hazards=pd.DataFrame(),
                        run={}, descriptions=dict(getattr(assess, "DESCRIPTIONS", {})))
     sink = GpkgAppender(output, overwrite=overwrite, descriptions=probe.layer_descriptions())
-    merger = _Merger(keep=False, write=sink.append)
+    merger = _Streamer(sink)
+    report = progress or (lambda stage, frac: None)
     try:
-        info = run_partitions(source, config, dem, progress, merger)
-        layers = merger.layers(info["input_crs"], config)
-        layers["curves"] = (pd.concat(merger.summary, ignore_index=True) if merger.summary
-                            else pd.DataFrame())
-        layers["segments"] = pd.DataFrame()
+        info = run_partitions(source, config, dem, lambda s, f: report(s, 0.9 * f), merger,
+                              arrow=True)
+        t = time.perf_counter()
+        curve_columns = merger.empty.get("hazards", merger.empty.get("curves"))
+        merger.write_ranked(list(curve_columns.columns) if curve_columns is not None else [],
+                            config, lambda s, f: report(s, 0.9 + 0.1 * f))
+        info["timings"]["write_ranked"] = round(time.perf_counter() - t, 4)
+        layers = {"curves": (pd.concat(merger.summary, ignore_index=True) if merger.summary
+                             else pd.DataFrame({"curve_id": [], "posted_kmh": []})),
+                  "segments": pd.DataFrame(), **merger.top}
+        layers.setdefault("hazards", pd.DataFrame())
         result = _finish(source, dem, config, info, merger, layers)
-        last = {name: frame for name, frame in result.layers().items()
-                if name not in ("curves", "segments")}
-        sink.close(last)
+        styles = merger.style_frames()
+        sink.close({"run": result.layers()["run"]},
+                   finish=lambda path: write_styles(path, styles))
     except BaseException:
         sink.abort()
         raise

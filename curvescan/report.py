@@ -75,7 +75,8 @@ def summary_lines(result: Any, worst: int = 10) -> list[str]:
                      + _pairs(summary.get("hazards_per_mechanism", {})))
         lines.append("speed consistency (Lamm II, from memory): "
                      + _pairs(summary.get("consistency_counts", {})))
-    lines.append(f"hazard curves: {len(hazards)}")
+    # a streamed result keeps only the top hazards; the run record has the count
+    lines.append(f"hazard curves: {run.get('hazards', len(hazards))}")
     if len(hazards):
         top = hazards.sort_values("severity_rank").head(worst) \
             if "severity_rank" in hazards else hazards.head(worst)

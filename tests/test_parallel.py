@@ -161,6 +161,19 @@ def test_partitioned_geoparquet_folder(tmp_path, network, cluster):
     assert_same_layers(single, parted)
 
 
+def test_one_worker_runs_in_this_process(tmp_path, network):
+    # --partition-features without workers or scheduler: a local cluster in this process
+    from curvescan import parallel
+    from curvescan.config import make_config
+
+    client, cluster = parallel._client(make_config(partition_features=20))
+    try:
+        assert cluster.processes is False and len(cluster.workers) == 1
+    finally:
+        client.close()
+        cluster.close()
+
+
 def test_missing_field_in_a_partition_is_one_clear_error(network, cluster):
     with pytest.raises(InputError, match="speed-field"):
         scan(network, speed_field="no_such_field", partition_features=30,
@@ -184,6 +197,77 @@ def test_streamed_geopackage_matches_in_memory_counts(tmp_path, network, single,
     assert res.run["curves"] == len(single.curves)
     ids = pyogrio.read_dataframe(out, layer="curves", columns=["curve_id"])["curve_id"]
     assert ids.is_unique
+
+
+def _gpkg_layers(path) -> dict:
+    import pyogrio
+
+    return {name: pyogrio.read_dataframe(path, layer=name)
+            for name, _ in pyogrio.list_layers(path) if name != "run"}  # run: times differ
+
+
+def test_streamed_geopackage_equals_the_in_memory_result(tmp_path, network, single, cluster,
+                                                         monkeypatch):
+    # same partitions give the same ids, so the streamed file (ranked layers spilled to
+    # disk, ranked from their key columns, written in chunks of 7 rows) must hold exactly
+    # the rows of the in-memory partitioned result, hazards and winter in rank order
+    import pyogrio
+
+    from curvescan import parallel
+    from curvescan.algorithms import run_scan
+    from curvescan.report import summary_lines
+
+    monkeypatch.setattr(parallel, "RANK_CHUNK", 7)
+    monkeypatch.setattr(parallel, "TOP_ROWS", 5)
+    kw = dict(speed_field="maxspeed", partition_features=15,
+              scheduler=cluster.scheduler_address)
+    calls = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        memory = scan(network, **kw)
+        memory.to_gpkg(tmp_path / "memory.gpkg")
+        single.to_gpkg(tmp_path / "single.gpkg")
+        streamed = run_scan(network, tmp_path / "streamed.gpkg",
+                            progress=lambda stage, f: calls.append((stage, f)), **kw)
+    got, want = _gpkg_layers(tmp_path / "streamed.gpkg"), _gpkg_layers(tmp_path / "memory.gpkg")
+    assert list(got) == list(want) == ["curves", "segments", "hazards", "winter",
+                                       "layer_styles"]
+    assert len(want["hazards"]) > 2 * 7 and len(want["winter"]) > 2 * 7
+    for name in want:  # layer styles too (but the time they were written)
+        a, b = (x[name].drop(columns=["update_time"], errors="ignore") for x in (got, want))
+        pd.testing.assert_frame_equal(a, b, check_exact=True, obj=name)
+    assert list(got["hazards"]["severity_rank"]) == list(range(1, len(got["hazards"]) + 1))
+    # field types and geometry types as a single-process GeoPackage has them
+    for name in ["curves", "segments", "hazards", "winter"]:
+        a = pyogrio.read_info(tmp_path / "streamed.gpkg", layer=name)
+        b = pyogrio.read_info(tmp_path / "single.gpkg", layer=name)
+        assert list(a["fields"]) == list(b["fields"]), name
+        assert list(a["dtypes"]) == list(b["dtypes"]), name
+        assert a["geometry_type"] == b["geometry_type"], name
+    # the result keeps the top rows and the counts; the summary quotes the full count
+    assert len(streamed.hazards) == 5
+    assert list(streamed.hazards["curve_id"]) == list(memory.hazards["curve_id"][:5])
+    assert len(streamed.curves) == len(single.curves)
+    assert f"hazard curves: {len(single.hazards)}" in summary_lines(streamed)
+    # the progress bar runs over the partitions and the ranked write, up to 1
+    fractions = [f for _, f in calls]
+    assert fractions == sorted(fractions) and fractions[-1] == pytest.approx(1.0)
+    stages = {stage.split(" ")[0] for stage, _ in calls}
+    assert {"survey", "partition", "writing"} <= stages
+
+
+def test_spill_gives_rows_in_the_order_asked(tmp_path):
+    # rows spread over several appended tables come back in any asked order
+    import pyarrow as pa
+
+    from curvescan.io.partitions import ArrowLayer, ArrowSpill
+
+    spill = ArrowSpill(tmp_path, "x")
+    for start, n in ((0, 5), (5, 0), (5, 7), (12, 3)):
+        spill.append(ArrowLayer(pa.table({"v": np.arange(start, start + n)}), None, None))
+    rows = np.array([14, 0, 6, 5, 11, 3, 12, 13, 1])
+    assert spill.take(rows).table["v"].to_pylist() == rows.tolist()
+    assert spill.take(np.array([], dtype=np.int64)).table.num_rows == 0
 
 
 def test_declared_options_reach_the_command_line():

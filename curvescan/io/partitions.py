@@ -11,8 +11,12 @@ A :class:`PartitionSource` describes the partitions of an input without reading 
 
 The description is small and picklable, so it travels to dask workers and every worker
 reads its own partition (geometries are never pickled from the client).
+
+Results travel back the other way as :class:`ArrowLayer` (an Arrow table with WKB
+geometry, made on the worker), which the client writes without building a geometry.
 :class:`GpkgAppender` writes output layers partition by partition into one temporary
-GeoPackage that replaces the target only when complete.
+GeoPackage that replaces the target only when complete; :class:`ArrowSpill` keeps the
+rows of a ranked layer on disk until every partition is in and the ranks are known.
 """
 
 from __future__ import annotations
@@ -21,17 +25,21 @@ import os
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any, Callable, Mapping
 
 import geopandas as gpd
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 import pyogrio
+import shapely
 
 from ..errors import DataSourceError, InputError
 from .vector import _choose_layer, _first_line, check_output_path
 
-__all__ = ["PartitionSource", "open_partitions", "is_parquet", "GpkgAppender"]
+__all__ = ["PartitionSource", "open_partitions", "is_parquet", "GpkgAppender", "ArrowLayer",
+           "ArrowSpill"]
 
 
 def is_parquet(path: str) -> bool:
@@ -168,12 +176,186 @@ def _in_process(client: Any) -> bool:
     return bool(cluster is not None and getattr(cluster, "processes", True) is False)
 
 
+@dataclass
+class ArrowLayer:
+    """One output layer of one partition as an Arrow table, ready for the GeoPackage.
+
+    Made on the worker by :meth:`from_frame` (geometry to WKB, text columns to strings,
+    the geometry type and CRS as :func:`pyogrio.write_dataframe` would decide them), so
+    that the client only renumbers ids and hands the table to GDAL.
+    """
+
+    table: pa.Table
+    geometry_type: str | None
+    crs: str | None
+
+    @classmethod
+    def from_frame(cls, frame: pd.DataFrame) -> "ArrowLayer":
+        """Convert a layer (GeoDataFrame, or DataFrame without geometry)."""
+        frame = _text_columns(frame)
+        geometry_type = crs = None
+        if isinstance(frame, gpd.GeoDataFrame) and frame.geometry.name in frame.columns:
+            name = frame.geometry.name
+            values = np.asarray(frame.geometry.values, dtype=object)
+            geometry_type, values = _geometry_type(values)
+            if frame.crs is not None:
+                epsg = frame.crs.to_epsg()
+                crs = f"EPSG:{epsg}" if epsg else frame.crs.to_wkt("WKT1_GDAL")
+            frame = pd.DataFrame(frame, copy=False).assign(
+                **{name: pd.Series(shapely.to_wkb(values), index=frame.index, dtype=object)})
+        table = pa.Table.from_pandas(pd.DataFrame(frame, copy=False), preserve_index=False)
+        if geometry_type is not None:
+            table = _set_type(table, name, pa.binary())
+        for fld in table.schema:  # GDAL takes no null type: a string, as pyogrio makes it
+            if pa.types.is_null(fld.type):
+                table = _set_type(table, fld.name, pa.string())
+        return cls(table, geometry_type, crs)
+
+    def __len__(self) -> int:
+        return self.table.num_rows
+
+    @property
+    def columns(self) -> list[str]:
+        return self.table.column_names
+
+    def shifted(self, shift: Mapping[str, int]) -> "ArrowLayer":
+        """Return the layer with ``shift[c]`` added to each of its columns ``c``."""
+        table = self.table
+        for col, by in shift.items():
+            if col in table.column_names and by:
+                k = table.schema.get_field_index(col)
+                table = table.set_column(k, table.schema.field(k),
+                                         pc.add(table[col], pa.scalar(by, table[col].type)))
+        return ArrowLayer(table, self.geometry_type, self.crs)
+
+    def replaced(self, column: str, values: np.ndarray) -> "ArrowLayer":
+        """Return the layer with ``column`` (which must exist) holding ``values``."""
+        k = self.table.schema.get_field_index(column)
+        field = self.table.schema.field(k)
+        table = self.table.set_column(k, field, pa.array(values, type=field.type))
+        return ArrowLayer(table, self.geometry_type, self.crs)
+
+    def head(self, n: int) -> "ArrowLayer":
+        """The first ``n`` rows."""
+        return ArrowLayer(self.table.slice(0, n), self.geometry_type, self.crs)
+
+    def frame(self, columns: list[str]) -> pd.DataFrame:
+        """The given columns (those present) as a plain DataFrame, no geometry.
+
+        A copy: a zero-copy column would keep alive the buffer it lies in, which may hold
+        the whole partition (a received message, or a pandas block of every float column).
+        """
+        table = self.table.select([c for c in columns if c in self.table.column_names])
+        return table.to_pandas().copy(deep=True)
+
+    def empty(self) -> "ArrowLayer":
+        """No rows, the same schema (and no reference to this layer's buffers)."""
+        return ArrowLayer(self.table.schema.empty_table(), self.geometry_type, self.crs)
+
+    def to_frame(self) -> gpd.GeoDataFrame | pd.DataFrame:
+        """Back to a (Geo)DataFrame (a copy); text columns come back as Python strings."""
+        frame = self.table.to_pandas().copy(deep=True)
+        if self.geometry_type is None:
+            return frame
+        geom = shapely.from_wkb(frame.pop("geometry").to_numpy(dtype=object))
+        return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geom, index=frame.index,
+                                                              crs=self.crs))
+
+
+def _set_type(table: pa.Table, name: str, typ: pa.DataType) -> pa.Table:
+    k = table.schema.get_field_index(name)
+    return table.set_column(k, table.schema.field(k).with_type(typ), table[name].cast(typ))
+
+
+def _geometry_type(values: np.ndarray) -> tuple[str, np.ndarray]:
+    """The GeoPackage geometry type of ``values`` (as pyogrio decides it for GPKG)."""
+    present = values[~(shapely.is_missing(values) | shapely.is_empty(values))]
+    kinds = set(shapely.get_type_id(present).tolist())
+    names = {1: "LineString", 5: "MultiLineString", 0: "Point", 3: "Polygon"}
+    if kinds == {1, 5}:  # single and multi lines: GPKG wants one type, promote
+        values = values.copy()
+        single = shapely.get_type_id(values) == 1
+        values[single] = [shapely.multilinestrings([g]) for g in values[single]]
+        kind = "MultiLineString"
+    elif len(kinds) == 1:
+        kind = names.get(kinds.pop(), "Unknown")
+    else:
+        kind = "Unknown"
+    if kind != "Unknown" and len(present) and shapely.has_z(present).any():
+        kind += " Z"
+    return kind, values
+
+
+class ArrowSpill:
+    """The rows of one layer in an Arrow IPC file, appended by partition, read in any order.
+
+    Ranked layers (``hazards``, ``winter``) are written only once every partition is in;
+    until then their rows wait here on disk, and the client keeps only the ranking keys.
+    """
+
+    def __init__(self, folder: str | os.PathLike, name: str) -> None:
+        self.path = os.path.join(folder, f"{name}.arrows")
+        self.writer: Any = None
+        self.schema: pa.Schema | None = None
+        self.geometry_type: str | None = None
+        self.crs: str | None = None
+        self.n = 0
+
+    def append(self, layer: ArrowLayer) -> None:
+        """Append the rows of ``layer`` (schema as the first layer's)."""
+        table = layer.table
+        if self.writer is None:
+            self.schema, self.geometry_type, self.crs = table.schema, layer.geometry_type, \
+                layer.crs
+            self.writer = pa.ipc.new_file(self.path, self.schema)
+        elif table.schema != self.schema:
+            table = table.select(self.schema.names).cast(self.schema)
+        if len(table) and not self.n:
+            self.geometry_type = layer.geometry_type
+        elif len(table) and layer.geometry_type != self.geometry_type:
+            self.geometry_type = "Unknown"
+        self.writer.write_table(table)
+        self.n += table.num_rows
+
+    def take(self, rows: np.ndarray) -> ArrowLayer:
+        """Rows ``rows`` (in that order). Memory-mapped: only the rows read are loaded."""
+        if self.writer is not None:
+            self.writer.close()
+            self.writer = None
+        rows = np.asarray(rows, dtype=np.int64)
+        with pa.memory_map(self.path) as src:
+            reader = pa.ipc.open_file(src)
+            # take batch by batch: a take over the whole (chunked) table would first
+            # concatenate every batch, that is copy the whole file into memory
+            sizes = [reader.get_batch(i).num_rows for i in range(reader.num_record_batches)]
+            starts = np.concatenate([[0], np.cumsum(sizes)])
+            batch = np.searchsorted(starts, rows, side="right") - 1
+            by_batch = np.argsort(batch, kind="stable")
+            pieces = [reader.get_batch(int(b)).take(pa.array(rows[sel] - starts[b]))
+                      for b, sel in _groups(batch, by_batch)]
+            table = pa.Table.from_batches(pieces, schema=reader.schema)
+            back = np.empty_like(by_batch)
+            back[by_batch] = np.arange(len(rows))
+            table = table.combine_chunks().take(pa.array(back))
+        return ArrowLayer(table, self.geometry_type, self.crs)
+
+
+def _groups(labels: np.ndarray, order: np.ndarray):
+    """``(label, indices)`` for each label, ``order`` sorting ``labels`` (stable)."""
+    sorted_labels = labels[order]
+    cut = np.flatnonzero(np.diff(sorted_labels)) + 1
+    for sel in np.split(order, cut) if len(order) else []:
+        yield int(labels[sel[0]]), sel
+
+
 class GpkgAppender:
     """Write output layers partition by partition into one GeoPackage, atomically.
 
     Layers are appended to a temporary file next to the target, in the order they first
     arrive; :meth:`close` writes any layer never seen (empty), then the last layers, and
-    moves the file into place. :meth:`abort` removes the temporary file.
+    moves the file into place. :meth:`abort` removes the temporary file. :meth:`spill`
+    gives an :class:`ArrowSpill` in a temporary folder next to the target, removed by
+    :meth:`close` and :meth:`abort`.
     """
 
     def __init__(self, path: str | os.PathLike, *, overwrite: bool,
@@ -184,44 +366,70 @@ class GpkgAppender:
         os.close(fd)
         os.unlink(tmp)
         self.tmp = tmp
+        self.spill_dir: str | None = None
         self.descriptions = dict(descriptions)
         self.written: set[str] = set()
-        self.templates: dict[str, pd.DataFrame] = {}
+        self.templates: dict[str, Any] = {}
 
-    def append(self, name: str, frame: pd.DataFrame) -> None:
+    def spill(self, name: str) -> ArrowSpill:
+        """A new spill file for layer ``name``."""
+        if self.spill_dir is None:
+            self.spill_dir = tempfile.mkdtemp(prefix=f".{self.target.name}.",
+                                              suffix=".spill", dir=self.target.parent)
+        return ArrowSpill(self.spill_dir, name)
+
+    def append(self, name: str, frame: pd.DataFrame | ArrowLayer) -> None:
         """Append the rows of ``frame`` to layer ``name`` (created on first rows)."""
-        frame = _text_columns(frame)
+        if not isinstance(frame, ArrowLayer):
+            frame = _text_columns(frame)
         if len(frame) == 0:
-            self.templates.setdefault(name, frame)
+            self.templates.setdefault(name, frame.empty() if isinstance(frame, ArrowLayer)
+                                      else frame)
             return
         kwargs: dict[str, Any] = {"layer": name, "driver": "GPKG",
                                   "append": os.path.exists(self.tmp)}
+        if not kwargs["append"]:  # GeoPackage 1.3, as export.write_gpkg writes it
+            kwargs["dataset_options"] = {"VERSION": "1.3"}
         if name not in self.written and name in self.descriptions:
             kwargs["layer_metadata"] = {"DESCRIPTION": self.descriptions[name]}
         try:
-            pyogrio.write_dataframe(frame if isinstance(frame, gpd.GeoDataFrame)
-                                    else pd.DataFrame(frame), self.tmp, use_arrow=True,
-                                    **kwargs)
+            if isinstance(frame, ArrowLayer):
+                geo = {} if frame.geometry_type is None else {
+                    "geometry_name": "geometry", "geometry_type": frame.geometry_type,
+                    "crs": frame.crs}
+                pyogrio.write_arrow(frame.table, self.tmp, **geo, **kwargs)
+            else:
+                pyogrio.write_dataframe(frame if isinstance(frame, gpd.GeoDataFrame)
+                                        else pd.DataFrame(frame), self.tmp, use_arrow=True,
+                                        **kwargs)
         except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError,
                 OSError) as exc:
             self.abort()
             raise DataSourceError(_first_line(f"cannot write {self.target}: {exc}")) from None
         self.written.add(name)
 
-    def close(self, last: Mapping[str, pd.DataFrame]) -> Path:
-        """Write empty layers never filled and the ``last`` layers; move into place."""
+    def close(self, last: Mapping[str, pd.DataFrame],
+              finish: Callable[[str], Any] | None = None) -> Path:
+        """Write empty layers never filled and the ``last`` layers, call ``finish(path)``
+        on the temporary file (layer styles), then move it into place."""
         for name, frame in self.templates.items():
             if name not in self.written:
-                self.written.discard(name)
                 self._write_empty(name, frame)
         for name, frame in last.items():
             self.append(name, frame)
+        if finish is not None:
+            finish(self.tmp)
         os.replace(self.tmp, self.target)
+        self._drop_spill()
         return self.target
 
-    def _write_empty(self, name: str, frame: pd.DataFrame) -> None:
+    def _write_empty(self, name: str, frame: pd.DataFrame | ArrowLayer) -> None:
+        if isinstance(frame, ArrowLayer):
+            frame = frame.to_frame()
         kwargs: dict[str, Any] = {"layer": name, "driver": "GPKG",
                                   "append": os.path.exists(self.tmp)}
+        if not kwargs["append"]:
+            kwargs["dataset_options"] = {"VERSION": "1.3"}
         if name in self.descriptions:
             kwargs["layer_metadata"] = {"DESCRIPTION": self.descriptions[name]}
         pyogrio.write_dataframe(frame, self.tmp, **kwargs)
@@ -231,6 +439,14 @@ class GpkgAppender:
         """Remove the temporary file (the target is left as it was)."""
         if os.path.exists(self.tmp):
             os.unlink(self.tmp)
+        self._drop_spill()
+
+    def _drop_spill(self) -> None:
+        if self.spill_dir is not None:
+            import shutil
+
+            shutil.rmtree(self.spill_dir, ignore_errors=True)
+            self.spill_dir = None
 
 
 def _text_columns(frame: pd.DataFrame) -> pd.DataFrame:
