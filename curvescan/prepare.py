@@ -410,6 +410,15 @@ def _join(parts: tuple[np.ndarray, np.ndarray], part_row: np.ndarray,
     return assemble(parts[0], starts, ends, part_row, part, reverse, chain_of, tolerance)
 
 
+def _same_group(group: np.ndarray | None, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Whether the parts of ends ``a`` and ``b`` may join: no ``group``, or equal non-missing
+    group values."""
+    if group is None:
+        return np.ones(len(a), dtype=bool)
+    ga, gb = group[a >> 1], group[b >> 1]
+    return np.asarray(pd.notna(ga) & (ga == gb), dtype=bool)
+
+
 def chain_order(end_xy: np.ndarray, group: np.ndarray | None,
                 tolerance: float, through_deg: float = 0.0,
                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -448,9 +457,7 @@ def chain_order(end_xy: np.ndarray, group: np.ndarray | None,
     if end_xy.shape[1] >= 4:
         same_way = np.einsum("ij,ij->i", end_xy[a, 2:], end_xy[b, 2:])
         ok &= same_way < np.cos(np.radians(UTURN_DEG))
-    if group is not None:
-        ga, gb = group[a >> 1], group[b >> 1]
-        ok &= pd.notna(ga) & (ga == gb)
+    ok &= _same_group(group, a, b)
     mate[a[ok]], mate[b[ok]] = b[ok], a[ok]
     if through_deg > 0 and end_xy.shape[1] >= 4:
         a, b = _through_pairs(end_xy, node, degree, group, through_deg)
@@ -516,9 +523,7 @@ def _through_pairs(end_xy: np.ndarray, node: np.ndarray, degree: np.ndarray,
     a, b = ends[np.concatenate(pa)], ends[np.concatenate(pb)]
     straight = -np.einsum("ij,ij->i", end_xy[a, 2:], end_xy[b, 2:])
     ok = ((a >> 1) != (b >> 1)) & (straight >= np.cos(np.radians(through_deg)))
-    if group is not None:
-        ga, gb = group[a >> 1], group[b >> 1]
-        ok &= pd.notna(ga) & (ga == gb)
+    ok &= _same_group(group, a, b)
     a, b, straight = a[ok], b[ok], straight[ok]
     order = np.lexsort((-straight, node[a]))
     a, b = a[order], b[order]

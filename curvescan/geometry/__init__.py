@@ -15,9 +15,9 @@ import pandas as pd
 from ..declare import Param
 from ._ragged import expand, find, range_quantile, scatter_max, scatter_min
 from .circular import (
-    CONSENSUS_SIGMAS,
     Profile,
     circular_parts,
+    consensus_tolerance,
     cumulative_turn,
     half_level_span,
 )
@@ -268,14 +268,12 @@ def _radius_se(parts: dict, sigma_chain: np.ndarray, tolerance_floor_m: float) -
 
     n = parts["n"].astype(float)
     dof = np.maximum(n - 3.0, 0.0)
-    rss = parts["rmse"] ** 2 * n
     sig = sigma_chain[parts["chain"].astype(np.int64)]
-    pooled = np.sqrt((rss + PRIOR_DOF * sig ** 2) / (dof + PRIOR_DOF))
     factor = stdtrit(dof + PRIOR_DOF, 0.975) / 2.0
-    statistical = parts["radius_sd_unit"] * pooled * factor
+    statistical = _radius_sd(parts, sigma_chain) * factor
     # systematic part: departures from the circle that the consensus tolerance lets in
     # (transition vertices near the arc's ends) do not average out over the vertices
-    tol = np.maximum(CONSENSUS_SIGMAS * sig, tolerance_floor_m)
+    tol = consensus_tolerance(sig, tolerance_floor_m)
     amplitude = np.maximum(SYSTEMATIC_TOL_SHARE * tol, SYSTEMATIC_RMSE_SHARE * parts["rmse"])
     systematic = parts["radius_sd_unit"] * np.sqrt(n) * amplitude
     return np.hypot(statistical, systematic)
@@ -303,13 +301,15 @@ def _shift_spread(prof: Any, parts: dict, tolerance_floor_m: float) -> np.ndarra
     chain = parts["chain"].astype(np.int64)
     # only where the consensus could not vouch for the vertices: three (always on a
     # circle) or a few that miss the circle by more than the consensus tolerance
-    tol = np.maximum(CONSENSUS_SIGMAS * prof.sigma[chain], tolerance_floor_m)
+    tol = consensus_tolerance(prof.sigma[chain], tolerance_floor_m)
     unsure = (i1 - i0 <= 3) | (parts["rmse"] > tol)
     few = np.flatnonzero((i1 - i0 <= FEW_VERTICES) & unsure & np.isfinite(parts["radius"]))
     out = np.zeros(len(i0))
     if len(few) == 0:
         return out
     lo, hi = prof.v_off[chain[few]], prof.v_off[chain[few] + 1]
+    # from the part's second vertex to its centre
+    to_centre = np.column_stack([parts["cx"][few], parts["cy"][few]]) - prof.coords[i0[few] + 1]
     spread = np.zeros(len(few))
     for step in (-1, 1):
         a, b = i0[few] + step, i1[few] + step
@@ -318,10 +318,9 @@ def _shift_spread(prof: Any, parts: dict, tolerance_floor_m: float) -> np.ndarra
         fit = fit_circles(prof.coords[idx, 0], prof.coords[idx, 1], grp, len(few),
                           refine=False)
         # the moved circle must bend the same way (its centre on the same side)
-        same_side = (fit.cx - prof.coords[np.clip(a + 1, 0, len(prof.coords) - 1), 0]) * (
-            parts["cx"][few] - prof.coords[i0[few] + 1, 0]) + (
-            fit.cy - prof.coords[np.clip(a + 1, 0, len(prof.coords) - 1), 1]) * (
-            parts["cy"][few] - prof.coords[i0[few] + 1, 1]) > 0
+        moved = np.column_stack([fit.cx, fit.cy]) - prof.coords[
+            np.clip(a + 1, 0, len(prof.coords) - 1)]
+        same_side = moved[:, 0] * to_centre[:, 0] + moved[:, 1] * to_centre[:, 1] > 0
         change = np.abs(fit.radius - parts["radius"][few])
         use = ok & same_side & np.isfinite(change)
         spread = np.where(use, np.maximum(spread, change), spread)

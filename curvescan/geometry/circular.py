@@ -56,6 +56,12 @@ CORE_QUANTILE = 0.9
 CORE_SHARE = 0.8
 
 
+def consensus_tolerance(sigma: np.ndarray, floor_m: float) -> np.ndarray:
+    """Distance from a circle within which a vertex belongs to it: :data:`CONSENSUS_SIGMAS`
+    times the chain's vertex noise, at least ``floor_m``."""
+    return np.maximum(CONSENSUS_SIGMAS * sigma, floor_m)
+
+
 @dataclass
 class Profile:
     """Station and vertex arrays the circular-part search reads."""
@@ -269,7 +275,7 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         centre_m = 0.5 * (prof.gs[cf] + prof.gs[cl])
         centre = np.clip(_nearest_vertex(prof, centre_m), i0, np.maximum(i1 - 1, i0))
         fit = _fit(prof, i0, i1, refine=False)
-        tol = np.maximum(CONSENSUS_SIGMAS * prof.sigma[chain], tolerance_floor_m)
+        tol = consensus_tolerance(prof.sigma[chain], tolerance_floor_m)
         # a seed whose vertices do not lie on one circle (RMSE beyond the tolerance) spans
         # more than the arc, as on sparse vertices: start from the three around its middle
         i0, i1 = _middle_three(fit, tol, centre, i0, i1, vlo, vhi)

@@ -64,6 +64,15 @@ def _kasa_rss(m: np.ndarray) -> np.ndarray:
     return out
 
 
+def _lowest_per_part(total: np.ndarray, part: np.ndarray, position: np.ndarray,
+                     out: np.ndarray) -> None:
+    """``out[q]`` = the ``position`` with the lowest ``total`` among those of part ``q``
+    (the first such position on ties)."""
+    order = np.lexsort((total, part))
+    first = np.r_[True, part[order][1:] != part[order][:-1]]
+    out[part[order][first]] = position[order][first]
+
+
 def _best_split(coords: np.ndarray, i0: np.ndarray, i1: np.ndarray, cx: np.ndarray,
                 cy: np.ndarray, radius: np.ndarray, todo: np.ndarray) -> np.ndarray:
     """Vertex index ``j`` (first vertex of the second arc) minimising the summed Kasa
@@ -80,10 +89,7 @@ def _best_split(coords: np.ndarray, i0: np.ndarray, i1: np.ndarray, cx: np.ndarr
             np.ascontiguousarray(coords, dtype=float), i0.astype(np.int64),
             count.astype(np.int64), cx, cy, radius, todo, MIN_SUB_VERTICES)
         if len(grp):
-            total = _kasa_rss(left) + _kasa_rss(right)
-            order = np.lexsort((total, grp))
-            first = np.r_[True, grp[order][1:] != grp[order][:-1]]
-            k[grp[order][first]] = pos[order][first]
+            _lowest_per_part(_kasa_rss(left) + _kasa_rss(right), grp, pos, k)
         return np.where(k >= 0, i0 + k, -1)
     idx, grp = expand(i0, count)
     u = (coords[idx, 0] - cx[grp]) / radius[grp]
@@ -98,12 +104,9 @@ def _best_split(coords: np.ndarray, i0: np.ndarray, i1: np.ndarray, cx: np.ndarr
     g = grp[p]
     left = csum[:, p] - csum[:, start[g]]
     right = csum[:, start[g] + count[g]] - csum[:, p]
-    total = _kasa_rss(left) + _kasa_rss(right)
     best = np.full(len(i0), -1)
     if len(p):
-        order = np.lexsort((total, g))
-        first = np.r_[True, g[order][1:] != g[order][:-1]]
-        best[g[order][first]] = p[order][first]
+        _lowest_per_part(_kasa_rss(left) + _kasa_rss(right), g, p, best)
     return np.where((best >= 0) & todo, i0 + k[np.maximum(best, 0)], -1)
 
 
@@ -127,16 +130,19 @@ def split_compound(coords: np.ndarray, gm: np.ndarray, sigma: np.ndarray,
         if len(cand) == 0:
             return parts
         a0, a1 = i0[cand], i1[cand]
+        n_all = (a1 - a0).astype(float)
+        rss0 = parts["rmse"][cand] ** 2 * n_all
+        noise_var = sigma[parts["chain"][cand].astype(np.int64)] ** 2
         # two circles cannot lower the residual sum of squares by more than all of it:
         # where that is below the test's threshold (``drop`` below, with the smallest
         # variance) the part keeps its circle, and its split is not searched for
-        rss_all = parts["rmse"][cand] ** 2 * (a1 - a0).astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
-            hopeful = rss_all / sigma[parts["chain"][cand].astype(np.int64)] ** 2 > critical
+            hopeful = rss0 / noise_var > critical
         j = _best_split(coords, a0, a1, parts["cx"][cand], parts["cy"][cand],
                         parts["radius"][cand], hopeful)
         has = j > 0
         cand, a0, a1, j = cand[has], a0[has], a1[has], j[has]
+        n_all, rss0, noise_var = n_all[has], rss0[has], noise_var[has]
         if len(cand) == 0:
             return parts
         starts = np.r_[a0, j]
@@ -144,11 +150,9 @@ def split_compound(coords: np.ndarray, gm: np.ndarray, sigma: np.ndarray,
         idx, grp = expand(starts, ends - starts)
         fit = fit_circles(coords[idx, 0], coords[idx, 1], grp, len(starts))
         m = len(cand)
-        n_all = (a1 - a0).astype(float)
-        rss0 = parts["rmse"][cand] ** 2 * n_all
         rss12 = fit.rmse[:m] ** 2 * fit.n[:m] + fit.rmse[m:] ** 2 * fit.n[m:]
         dof = np.maximum(n_all - 6.0, 1.0)
-        variance = np.maximum(sigma[parts["chain"][cand].astype(np.int64)] ** 2, rss12 / dof)
+        variance = np.maximum(noise_var, rss12 / dof)
         with np.errstate(invalid="ignore", divide="ignore"):
             drop = (rss0 - rss12) / variance
             ratio = np.maximum(fit.radius[:m], fit.radius[m:]) / np.minimum(
