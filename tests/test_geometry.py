@@ -109,6 +109,28 @@ def test_noisy_compound_curve_is_split_into_its_two_arcs():
     assert good >= 7
 
 
+@pytest.mark.parametrize("spacing", [15.0, 20.0, 25.0])
+@pytest.mark.parametrize("ratio", [2.0, 1.6])
+def test_short_flatter_second_arc_of_a_compound_curve_is_found(spacing, ratio):
+    """A flatter second arc carrying four or five vertices, then a transition: the seed of
+    its circle is wider than the arc, so the circle must be taken next to the first arc."""
+    r1, arc2 = 150.0, 4.5 * spacing
+    r2 = r1 * ratio
+    els = [Element("tangent", 300.0, 0, 0), Element("transition", 40.0, 0, 1 / r1, 1),
+           Element("arc", 220.0, 1 / r1, 1 / r1, 1), Element("arc", arc2, 1 / r2, 1 / r2, 2),
+           Element("transition", 40.0, 1 / r2, 0, 2), Element("tangent", 300.0, 0, 0)]
+    al = build(els, 500_000.0, 5_000_000.0, 0.3)
+    found = 0
+    for seed in range(10):
+        xy, _ = vertices(al, np.random.default_rng(seed), spacing_m=spacing, noise_m=0.2)
+        c = _curves([xy]).curves.sort_values("circ_start_m")
+        assert set(c["direction"]) == {"left"}
+        np.testing.assert_allclose(c["radius_m"].iloc[0], r1, rtol=0.03)
+        # four or five vertices under 0.2 m noise: the radius is rough, but flatter
+        found += len(c) == 2 and 1.2 * r1 < c["radius_m"].iloc[1] < 1.35 * r2
+    assert found >= 8
+
+
 def test_split_compound_keeps_a_single_noisy_circle_whole():
     """The split step on its own: a single noisy arc stays one part; two arcs of radius
     100 and 200 m become two, meeting at the vertex where the radius changes."""

@@ -13,7 +13,9 @@ Works on "pieces" (station ranges of one sign of curvature), all at once:
 4. **Peel**: what is left of the piece on either side of the circular part (beyond the
    curvature window, which blurs the join) becomes a new piece. In later rounds a piece
    becomes a circular part only when its curvature is a plateau, not a ramp: this finds
-   the second arc of a compound curve but not a transition.
+   the second arc of a compound curve but not a transition. Where a later piece's grown
+   circle fails that test, the longest run of 8 down to 4 vertices right next to the part
+   it was peeled from is tried instead (a short second arc holds fewer vertices than a seed).
 """
 
 from __future__ import annotations
@@ -249,6 +251,9 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
     # to the circular part it was peeled from (never into it); -1 = the piece's own range
     reach_lo = np.full(len(pf), -1, dtype=np.int64)
     reach_hi = np.full(len(pf), -1, dtype=np.int64)
+    # side of the circular part a piece was peeled from: +1 it lies before the piece,
+    # -1 after it, 0 none (first round)
+    side = np.zeros(len(pf), dtype=np.int64)
     chain = prof.chain[pf] if len(pf) else np.zeros(0, dtype=np.int64)
     scale = prof.choose_scale(level, chain)
     sign = np.sign(_piece_integral(prof, pf, pl, scale))
@@ -256,7 +261,7 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
     for rnd in range(ROUNDS):
         keep = pl - pf >= 2
         pf, pl, origin, sign, scale = pf[keep], pl[keep], origin[keep], sign[keep], scale[keep]
-        reach_lo, reach_hi = reach_lo[keep], reach_hi[keep]
+        reach_lo, reach_hi, side = reach_lo[keep], reach_hi[keep], side[keep]
         if len(pf) == 0:
             break
         chain = prof.chain[pf]
@@ -317,6 +322,22 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
                                                sign, scale)
             cover = (hi - lo) >= PIECE_COVER * (span_hi - span_lo)
             accept &= cover & _is_plateau(prof, lo, hi, sign, scale, fit.radius)
+            # a circle grown from a seed wider than what is left of a second arc runs on
+            # over the transition beyond it: try the arc right next to the part it was
+            # peeled from instead
+            retry = ~accept & (side != 0)
+            if retry.any():
+                near = np.where(side > 0, reach_lo, reach_hi)
+                r_ok, r0, r1 = _near_arc(prof, np.flatnonzero(retry), side, near, vlo, vhi,
+                                         tol, sign, pf, pl, min_length_m, min_deflection_rad)
+                if len(r_ok):
+                    i0[r_ok], i1[r_ok] = r0, r1
+                    again = _fit(prof, r0, r1)
+                    for name in fields:
+                        getattr(fit, name)[r_ok] = getattr(again, name)
+                    lo, hi = prof.gm[i0], prof.gm[np.maximum(i1 - 1, i0)]
+                    scale[r_ok] = prof.choose_scale(1.0 / fit.radius[r_ok], chain[r_ok])
+                    accept[r_ok] = np.isfinite(fit.radius[r_ok])
         out.append({"piece": origin[accept], "chain": chain[accept], "scale": scale[accept],
                     "sign": sign[accept],
                     "lo": lo[accept], "hi": hi[accept], "i0": i0[accept], "i1": i1[accept],
@@ -335,12 +356,14 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         new_reach_hi = np.concatenate([np.where(accept, i0, reach_hi)[found],
                                        np.where(accept, vhi, reach_hi)[found]])
         new_sign = np.concatenate([sign[found], sign[found]])
+        new_side = np.concatenate([np.where(accept, -1, side), np.where(accept, 1, side)])
         last = len(prof.s) - 1
         valid = (new_pl > new_pf) & (prof.chain[np.clip(new_pf, 0, last)] ==
                                      prof.chain[np.clip(new_pl, 0, last)])
         new_pf, new_pl = new_pf[valid], new_pl[valid]
         new_origin, new_sign = new_origin[valid], new_sign[valid]
         new_reach_lo, new_reach_hi = new_reach_lo[valid], new_reach_hi[valid]
+        new_side = new_side[valid]
         new_chain = prof.chain[new_pf]
         new_scale = prof.choose_scale(_piece_level(prof, new_pf, new_pl), new_chain)
         length = prof.s[new_pl] - prof.s[new_pf]
@@ -348,12 +371,56 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         worth = (length >= max(min_length_m, 1e-9)) & (turn * new_sign >= min_deflection_rad)
         pf, pl, origin = new_pf[worth], new_pl[worth], new_origin[worth]
         reach_lo, reach_hi = new_reach_lo[worth], new_reach_hi[worth]
-        sign, scale = new_sign[worth], new_scale[worth]
+        sign, scale, side = new_sign[worth], new_scale[worth], new_side[worth]
     if not out:
         return {k: np.zeros(0) for k in ("piece", "chain", "scale", "sign", "lo", "hi", "i0",
                                            "i1", "round") + fields}
     parts = {k: np.concatenate([o[k] for o in out]) for k in out[0]}
     return split_compound(prof.coords, prof.gm, prof.sigma, merge_fragments(prof, parts, tolerance_floor_m))
+
+
+#: Most vertices the retry next to a peeled-from part tries (it shrinks from there to three).
+NEAR_ARC_VERTICES = 8
+
+
+def _near_arc(prof: Profile, which: np.ndarray, side: np.ndarray, near: np.ndarray,
+              vlo: np.ndarray, vhi: np.ndarray, tol: np.ndarray, sign: np.ndarray,
+              pf: np.ndarray, pl: np.ndarray, min_length_m: float, min_deflection_rad: float):
+    """The longest run of vertices next to the part a piece was peeled from that lies on
+    one circle within ``tol`` and reads as a plateau, for the pieces ``which``.
+
+    Returns the pieces that found one and their vertex ranges [i0, i1).
+    """
+    found = np.zeros(len(which), dtype=bool)
+    out0 = np.zeros(len(which), dtype=np.int64)
+    out1 = np.zeros(len(which), dtype=np.int64)
+    w_side, w_near = side[which], near[which]
+    room = np.where(w_side > 0, vhi[which] - w_near, w_near - vlo[which])
+    for k in range(NEAR_ARC_VERTICES, 3, -1):
+        todo = np.flatnonzero(~found & (room >= k))
+        if len(todo) == 0:
+            continue
+        j = which[todo]
+        i0 = np.where(w_side[todo] > 0, w_near[todo], w_near[todo] - k)
+        i1 = i0 + k
+        fit = _fit(prof, i0, i1, refine=False)
+        idx, grp = expand(i0, i1 - i0)
+        gap = np.zeros(len(todo))
+        np.maximum.at(gap, grp, np.nan_to_num(circle_gaps(prof.coords, idx, grp, fit), nan=np.inf))
+        lo, hi = prof.gm[i0], prof.gm[i1 - 1]
+        radius = np.where(np.isfinite(fit.radius), fit.radius, np.inf)
+        ok = np.isfinite(fit.radius) & (gap <= tol[j])
+        ok &= (hi - lo >= min_length_m) & ((hi - lo) / radius >= min_deflection_rad)
+        if not ok.any():
+            continue
+        scale = prof.choose_scale(1.0 / np.where(ok, radius, 1.0), prof.chain[pf[j]])
+        ok &= _is_plateau(prof, lo, hi, sign[j], scale, np.where(ok, radius, 1.0))
+        span_lo, span_hi = half_level_span(prof, pf[j], pl[j], 0.5 * (lo + hi),
+                                           np.where(ok, radius, 1.0), sign[j], scale)
+        ok &= (hi - lo) >= PIECE_COVER * (span_hi - span_lo)
+        found[todo[ok]] = True
+        out0[todo[ok]], out1[todo[ok]] = i0[ok], i1[ok]
+    return which[found], out0[found], out1[found]
 
 
 def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
