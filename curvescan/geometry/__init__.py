@@ -253,7 +253,7 @@ PRIOR_DOF = 4.0
 #: the vertices in the radius standard error; calibrated with benchmarks/accuracy.py so
 #: that two standard errors cover 90-98 % of true radii in every scenario.
 SYSTEMATIC_TOL_SHARE = 0.15
-SYSTEMATIC_RMSE_SHARE = 0.5
+SYSTEMATIC_RMSE_SHARE = 0.25
 
 
 def _radius_se(parts: dict, sigma_chain: np.ndarray, tolerance_floor_m: float) -> np.ndarray:

@@ -9,7 +9,8 @@ Works on "pieces" (station ranges of one sign of curvature), all at once:
 3. **Grow**: the circular part spreads outward over vertices that lie within a tolerance
    of the circle (2.5 times the larger of the chain's vertex noise and the fit's RMSE, at
    least ``circle_tolerance_m``); one stray vertex does not stop it, two in a row do. The
-   circle is refitted on what it grew over.
+   circle is refitted on what it grew over. Tangent vertices the tolerance let in at
+   either end (they flatten the circle) are shed where a tangent line explains them better.
 4. **Peel**: what is left of the piece on either side of the circular part (beyond the
    curvature window, which blurs the join) becomes a new piece. In later rounds a piece
    becomes a circular part only when its curvature is a plateau, not a ramp: this finds
@@ -300,6 +301,7 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
                 getattr(fit, name)[ok] = getattr(new, name)[ok]
             if not changed.any():
                 break
+        i0, i1, fit = _tangent_ends(prof, fit, i0, i1, least, prof.sigma[chain], fields)
         # where the consensus kept a seed that misses its circle, the three vertices around
         # the middle are nearer the arc than a circle forced through transition vertices
         i0, i1 = _middle_three(fit, tol, centre, i0, i1, vlo, vhi)
@@ -377,6 +379,82 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
                                            "i1", "round") + fields}
     parts = {k: np.concatenate([o[k] for o in out]) for k in out[0]}
     return split_compound(prof.coords, prof.gm, prof.sigma, merge_fragments(prof, parts, tolerance_floor_m))
+
+
+#: Most vertices at each end of a circular part tested as lying on the tangent instead.
+TANGENT_END_VERTICES = 12
+#: A tangent end is kept off the circle when it lowers the sum of squared distances by more
+#: than this many noise variances.
+TANGENT_END_GAIN = 1.0
+TANGENT_END_ROUNDS = 4
+
+
+def _tangent_ends(prof: Profile, fit: CircleFit, i0: np.ndarray, i1: np.ndarray,
+                  least: np.ndarray, sigma: np.ndarray, fields: tuple):
+    """Shed the vertices at each end of a circular part that lie on a tangent to its circle
+    rather than on the circle.
+
+    The consensus tolerance lets in tangent (and transition) vertices up to about
+    ``sqrt(2 R tol)`` beyond the arc's end; they lie outside the circle and make it too
+    flat. For the first ``b`` vertices at an end (b = 1 .. TANGENT_END_VERTICES, at most a
+    third of the part), the line touching the circle between vertex ``b-1`` and ``b`` is
+    tried: the ``b`` that lowers the sum of squared distances the most is taken where it
+    lowers it by more than TANGENT_END_GAIN noise variances.
+    """
+    i0, i1 = i0.copy(), i1.copy()
+    floor = np.maximum(least, 4)
+    for _ in range(TANGENT_END_ROUNDS):
+        n = i1 - i0
+        k = np.minimum(n // 3, TANGENT_END_VERTICES)
+        active = np.flatnonzero(np.isfinite(fit.radius) & (sigma > 0) & (k >= 1)
+                                & (n - 1 > floor))
+        if len(active) == 0:
+            break
+        moved = np.zeros(len(fit.radius), dtype=bool)
+        for head in (True, False):
+            a = active
+            ka = k[a]
+            # one group per (part, b): vertices 0 .. b-1 from the end
+            b_part, b_grp = expand(np.zeros(len(a), dtype=np.int64), ka)
+            b = b_part + 1
+            v_off, v_grp = expand(np.zeros(len(b), dtype=np.int64), b)
+            part = a[b_grp][v_grp]
+            end = np.where(head, i0[part], i1[part] - 1)
+            step = 1 if head else -1
+            vi = end + step * v_off
+            # tangent point: the circle point halfway between vertex b-1 and b from the end
+            bb = b[v_grp]
+            pa = prof.coords[end + step * (bb - 1)]
+            pb = prof.coords[end + step * bb]
+            cx, cy, r = fit.cx[part], fit.cy[part], fit.radius[part]
+            ux, uy = 0.5 * (pa[:, 0] + pb[:, 0]) - cx, 0.5 * (pa[:, 1] + pb[:, 1]) - cy
+            norm = np.hypot(ux, uy)
+            ux, uy = ux / norm, uy / norm
+            px, py = prof.coords[vi, 0] - cx, prof.coords[vi, 1] - cy
+            d_line = px * ux + py * uy - r
+            d_circ = np.hypot(px, py) - r
+            gain = np.bincount(v_grp, d_circ ** 2 - d_line ** 2, len(b)) / sigma[a[b_grp]] ** 2
+            best_gain = np.full(len(a), -np.inf)
+            np.maximum.at(best_gain, b_grp, gain)
+            is_best = gain >= best_gain[b_grp]
+            best_b = np.zeros(len(a), dtype=np.int64)
+            np.maximum.at(best_b, b_grp[is_best], b[is_best])
+            go = best_gain > TANGENT_END_GAIN
+            best_b = np.minimum(best_b, (i1[a] - i0[a]) - floor[a] - 1)
+            go &= best_b > 0
+            if head:
+                i0[a[go]] += best_b[go]
+            else:
+                i1[a[go]] -= best_b[go]
+            moved[a[go]] = True
+        j = np.flatnonzero(moved)
+        if len(j) == 0:
+            break
+        new = _fit(prof, i0[j], i1[j], refine=False)
+        ok = np.isfinite(new.radius)
+        for name in fields:
+            getattr(fit, name)[j[ok]] = getattr(new, name)[ok]
+    return i0, i1, fit
 
 
 #: Most vertices the retry next to a peeled-from part tries (it shrinks from there to three).
