@@ -313,3 +313,31 @@ def test_linestring_wkb(monkeypatch):
     assert a.type == b.type and a.equals(b)
     lines = shapely.from_ragged_array(shapely.GeometryType.LINESTRING, xy, (offsets,))
     assert a.to_pylist() == list(shapely.to_wkb(lines))
+
+
+def test_substring_points(monkeypatch):
+    from curvescan.geometry import pieces
+
+    chains, _ = _chains()
+    rng = np.random.default_rng(5)
+    n = 400
+    chain = rng.integers(0, chains.n_chains, size=n)
+    length = chains.lengths[chain]
+    # inside, at and beyond the chain's ends, zero-length and on vertices
+    s0 = rng.uniform(-5.0, 1.0, n) * length
+    s0[::7] = 0.0
+    s1 = s0 + rng.uniform(0.0, 1.2, n) * length
+    s1[::5] = s0[::5]
+    s1[::11] = length[::11]
+    vert = chains.measure[chains.offsets[chain]]
+    s0[::13] = vert[::13]
+
+    def lines(wkb):
+        return lambda: pieces.substrings(chains, chain, s0, s1, wkb=wkb)
+
+    a, b = _both(monkeypatch, lines(True))
+    assert a.equals(b)
+    a, b = _both(monkeypatch, lines(False))
+    import shapely
+
+    assert list(shapely.to_wkb(a)) == list(shapely.to_wkb(b))

@@ -45,12 +45,12 @@ def compiled() -> bool:
 if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
 
     @njit(parallel=True, cache=True)
-    def _chord_kappa(x, y, s, chain, st_off, half, at, out, scatter):
-        """Chord curvature at stations ``at`` into ``out[t]`` (or ``out[at[t]]`` when
-        ``scatter``)."""
-        n = at.shape[0]
+    def _chord_kappa(x, y, s, chain, st_off, half, at, out, scatter, every):
+        """Chord curvature at stations ``at`` (or at every station when ``every``) into
+        ``out[t]`` (or ``out[at[t]]`` when ``scatter``)."""
+        n = s.shape[0] if every else at.shape[0]
         for t in prange(n):
-            i = at[t]
+            i = np.int64(t) if every else at[t]
             o = i if scatter else np.int64(t)
             ch = chain[i]
             start = st_off[ch]
@@ -196,6 +196,47 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
                 out[o + 5 + q] = (cnt >> (8 * q)) & 255
             src = 16 * offsets[p]
             out[o + 9:o + 9 + 16 * cnt] = points[src:src + 16 * cnt]
+
+    @njit(cache=True)
+    def _point_at(coords, gm, v_off, c, g, out, row):
+        """``resample.interpolate`` of one measure ``g`` on chain ``c`` into ``out[row]``:
+        the same search (NaN after everything), clip and arithmetic."""
+        lo = 0
+        hi = gm.shape[0]
+        if g == g:
+            while lo < hi:  # searchsorted(gm, g, "right")
+                mid = (lo + hi) // 2
+                if gm[mid] <= g:
+                    lo = mid + 1
+                else:
+                    hi = mid
+        else:
+            lo = gm.shape[0]
+        j = lo - 1
+        j = max(j, v_off[c])  # np.clip: maximum, then minimum
+        j = min(j, v_off[c + 1] - 2)
+        span = gm[j + 1] - gm[j]
+        t = (g - gm[j]) / span if span > 0 else 0.0
+        if t == t:  # np.clip's comparisons (NaN stays NaN)
+            t = t if t > 0.0 else 0.0
+            t = t if t < 1.0 else 1.0
+        out[row, 0] = coords[j, 0] * (1.0 - t) + coords[j + 1, 0] * t
+        out[row, 1] = coords[j, 1] * (1.0 - t) + coords[j + 1, 1] * t
+
+    @njit(parallel=True, cache=True)
+    def substring_points_kernel(coords, gm, v_off, chain, g0, g1, i0, inner, offsets):
+        """Points of each piece ``p`` (see ``pieces._lines``): the interpolated point at
+        ``g0[p]``, vertices ``i0[p] ..`` (``inner[p]`` of them), the point at ``g1[p]``,
+        from row ``offsets[p]``."""
+        out = np.empty((offsets[-1], 2))
+        for p in prange(chain.shape[0]):
+            first = offsets[p]
+            _point_at(coords, gm, v_off, chain[p], g0[p], out, first)
+            for k in range(inner[p]):
+                out[first + 1 + k, 0] = coords[i0[p] + k, 0]
+                out[first + 1 + k, 1] = coords[i0[p] + k, 1]
+            _point_at(coords, gm, v_off, chain[p], g1[p], out, offsets[p + 1] - 1)
+        return out
 
     @njit(cache=True)
     def near_vertex_kernel(gs, gm):
@@ -742,14 +783,16 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
                     t += 1
         return best, grp, pos, left, right
 
-def chord_kappa(x, y, s, chain, st_off, half, at, out=None):
-    """Compiled chord curvature at stations ``at`` (see ``resample.chord_curvature``);
+def chord_kappa(x, y, s, chain, st_off, half, at=None, out=None):
+    """Compiled chord curvature at stations ``at`` (all where None; see
+    ``resample.chord_curvature``);
     with ``out`` (one value per station) written to ``out[at]`` instead."""
-    at = np.asarray(at, dtype=np.int64)
+    every = at is None  # all stations: no index array of their own
+    at = np.zeros(0, dtype=np.int64) if every else np.asarray(at, dtype=np.int64)
     scatter = out is not None
     if not scatter:
-        out = np.empty(len(at))
+        out = np.empty(len(s) if every else len(at))
     _chord_kappa(np.ascontiguousarray(x), np.ascontiguousarray(y), s,
                  chain.astype(np.int64, copy=False), st_off.astype(np.int64, copy=False),
-                 np.asarray(half, dtype=np.int64), at, out, scatter)
+                 np.asarray(half, dtype=np.int64), at, out, scatter, every)
     return out

@@ -110,9 +110,9 @@ def chord_curvature(xy: np.ndarray, s: np.ndarray, chain: np.ndarray, st_off: np
         Signed curvature (1/m, + left) at ``at`` (or at every station).
     """
     x, y = (xy[:, 0], xy[:, 1]) if isinstance(xy, np.ndarray) else xy
-    idx = np.arange(len(s)) if at is None else np.asarray(at, dtype=np.int64)
     if use_compiled and kn.compiled():
-        return kn.chord_kappa(x, y, s, chain, st_off, half_window, idx, out)
+        return kn.chord_kappa(x, y, s, chain, st_off, half_window, at, out)
+    idx = np.arange(len(s)) if at is None else np.asarray(at, dtype=np.int64)
     if out is not None:
         out[idx] = chord_curvature(xy, s, chain, st_off, half_window, idx, use_compiled=False)
         return out

@@ -315,11 +315,14 @@ def solve_speed_dependent_ms(
         above_cap = inside(np.full(r.shape, _SPEED_CAP_MS))
         lo = np.fmin(banked_limit_ms(r, e, friction_of_speed(hi), downforce_per_mass=k), hi)
         lo = np.where(np.isfinite(lo), lo, 0.0)
+        # in place: the same halvings without new arrays per step
+        lo, hi = np.array(lo, dtype=float), np.array(hi, dtype=float)
+        mid, out = np.empty_like(lo), np.empty(lo.shape, dtype=bool)
         for _ in range(_BISECTION_STEPS):
-            mid = 0.5 * (lo + hi)
+            np.multiply(np.add(lo, hi, out=mid), 0.5, out=mid)
             ok = inside(mid)
-            lo = np.where(ok, mid, lo)
-            hi = np.where(ok, hi, mid)
+            np.copyto(lo, mid, where=ok)
+            np.copyto(hi, mid, where=np.logical_not(ok, out=out))
     v = np.where(above_cap, np.inf, 0.5 * (lo + hi))
     invalid = np.isnan(r) | np.isnan(e) | np.isnan(k) | ~(r > 0)
     return np.where(invalid, np.nan, v)
