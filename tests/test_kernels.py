@@ -341,3 +341,21 @@ def test_substring_points(monkeypatch):
     import shapely
 
     assert list(shapely.to_wkb(a)) == list(shapely.to_wkb(b))
+
+
+def test_tangent_end_gain(monkeypatch):
+    from curvescan.geometry import circular
+
+    rng = np.random.default_rng(11)
+    t = np.linspace(0.0, 1.2, 300)
+    coords = np.c_[100.0 * np.cos(t), 100.0 * np.sin(t)] + rng.normal(0, 0.3, (300, 2))
+    end = rng.integers(20, 280, 40)
+    k = rng.integers(0, 13, 40)
+    cx, cy = rng.normal(0, 1.0, 40), rng.normal(0, 1.0, 40)
+    r = 100.0 + rng.normal(0, 2.0, 40)
+    sigma = np.full(40, 0.3)
+    for step in (1, -1):
+        a, b = _both(monkeypatch, lambda: circular._tangent_end_gain(coords, end, step, k, cx,
+                                                                     cy, r, sigma))
+        _equal(a, b)
+        assert (a[0][k == 0] == 0).all() and (a[0] <= k).all()

@@ -611,6 +611,37 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
         return out
 
     @njit(cache=True)
+    def tangent_end_kernel(coords, end, step, k, cx, cy, r, sigma):
+        """Best number of end vertices to move from the circle to a tangent line, and the
+        drop in the sum of squares in noise variances (see ``circular._tangent_end_gain``)."""
+        n = end.shape[0]
+        best_b = np.zeros(n, dtype=np.int64)
+        best_gain = np.full(n, -np.inf)
+        for p in range(n):
+            e = end[p]
+            for b in range(1, k[p] + 1):
+                ia = e + step * (b - 1)
+                ib = e + step * b
+                ux = 0.5 * (coords[ia, 0] + coords[ib, 0]) - cx[p]
+                uy = 0.5 * (coords[ia, 1] + coords[ib, 1]) - cy[p]
+                norm = np.hypot(ux, uy)
+                ux = ux / norm
+                uy = uy / norm
+                acc = 0.0
+                for v in range(b):
+                    i = e + step * v
+                    px = coords[i, 0] - cx[p]
+                    py = coords[i, 1] - cy[p]
+                    d_line = px * ux + py * uy - r[p]
+                    d_circ = np.hypot(px, py) - r[p]
+                    acc += d_circ ** 2 - d_line ** 2
+                gain = acc / sigma[p] ** 2
+                if gain >= best_gain[p]:
+                    best_gain[p] = gain
+                    best_b[p] = b
+        return best_b, best_gain
+
+    @njit(cache=True)
     def cost_kernel(X, Y, group, active, a, b, r, n_groups):
         """Sum of squared distances from the circles over the points of active groups."""
         out = np.zeros(n_groups)

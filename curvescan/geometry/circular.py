@@ -413,32 +413,10 @@ def _tangent_ends(prof: Profile, fit: CircleFit, i0: np.ndarray, i1: np.ndarray,
         moved = np.zeros(len(fit.radius), dtype=bool)
         for head in (True, False):
             a = active
-            ka = k[a]
-            # one group per (part, b): vertices 0 .. b-1 from the end
-            b_part, b_grp = expand(np.zeros(len(a), dtype=np.int64), ka)
-            b = b_part + 1
-            v_off, v_grp = expand(np.zeros(len(b), dtype=np.int64), b)
-            part = a[b_grp][v_grp]
-            end = np.where(head, i0[part], i1[part] - 1)
-            step = 1 if head else -1
-            vi = end + step * v_off
-            # tangent point: the circle point halfway between vertex b-1 and b from the end
-            bb = b[v_grp]
-            pa = prof.coords[end + step * (bb - 1)]
-            pb = prof.coords[end + step * bb]
-            cx, cy, r = fit.cx[part], fit.cy[part], fit.radius[part]
-            ux, uy = 0.5 * (pa[:, 0] + pb[:, 0]) - cx, 0.5 * (pa[:, 1] + pb[:, 1]) - cy
-            norm = np.hypot(ux, uy)
-            ux, uy = ux / norm, uy / norm
-            px, py = prof.coords[vi, 0] - cx, prof.coords[vi, 1] - cy
-            d_line = px * ux + py * uy - r
-            d_circ = np.hypot(px, py) - r
-            gain = np.bincount(v_grp, d_circ ** 2 - d_line ** 2, len(b)) / sigma[a[b_grp]] ** 2
-            best_gain = np.full(len(a), -np.inf)
-            np.maximum.at(best_gain, b_grp, gain)
-            is_best = gain >= best_gain[b_grp]
-            best_b = np.zeros(len(a), dtype=np.int64)
-            np.maximum.at(best_b, b_grp[is_best], b[is_best])
+            end = np.where(head, i0[a], i1[a] - 1)
+            best_b, best_gain = _tangent_end_gain(prof.coords, end, 1 if head else -1, k[a],
+                                                  fit.cx[a], fit.cy[a], fit.radius[a],
+                                                  sigma[a])
             go = best_gain > TANGENT_END_GAIN
             best_b = np.minimum(best_b, (i1[a] - i0[a]) - floor[a] - 1)
             go &= best_b > 0
@@ -455,6 +433,43 @@ def _tangent_ends(prof: Profile, fit: CircleFit, i0: np.ndarray, i1: np.ndarray,
         for name in fields:
             getattr(fit, name)[j[ok]] = getattr(new, name)[ok]
     return i0, i1, fit
+
+
+def _tangent_end_gain(coords: np.ndarray, end: np.ndarray, step: int, k: np.ndarray,
+                      cx: np.ndarray, cy: np.ndarray, r: np.ndarray, sigma: np.ndarray):
+    """For each part, the number ``b`` (1..k) of vertices from ``end`` (walking ``step``)
+    whose move from the circle to the tangent line at vertex ``b`` lowers the sum of squared
+    distances most, and that drop in noise variances (ties: the larger ``b``)."""
+    if kn.compiled():
+        return kn.tangent_end_kernel(np.ascontiguousarray(coords, dtype=float),
+                                     end.astype(np.int64), int(step), k.astype(np.int64),
+                                     cx, cy, r, sigma)
+    n = len(end)
+    # one group per (part, b): the vertices 0 .. b-1 from the end
+    b_part, b_grp = expand(np.zeros(n, dtype=np.int64), k)
+    b = b_part + 1
+    v_off, v_grp = expand(np.zeros(len(b), dtype=np.int64), b)
+    part = b_grp[v_grp]
+    e = end[part]
+    vi = e + step * v_off
+    # tangent point: the circle point halfway between vertex b-1 and b from the end
+    bb = b[v_grp]
+    pa = coords[e + step * (bb - 1)]
+    pb = coords[e + step * bb]
+    ux = 0.5 * (pa[:, 0] + pb[:, 0]) - cx[part]
+    uy = 0.5 * (pa[:, 1] + pb[:, 1]) - cy[part]
+    norm = np.hypot(ux, uy)
+    ux, uy = ux / norm, uy / norm
+    px, py = coords[vi, 0] - cx[part], coords[vi, 1] - cy[part]
+    d_line = px * ux + py * uy - r[part]
+    d_circ = np.hypot(px, py) - r[part]
+    gain = np.bincount(v_grp, d_circ ** 2 - d_line ** 2, len(b)) / sigma[b_grp] ** 2
+    best_gain = np.full(n, -np.inf)
+    np.maximum.at(best_gain, b_grp, gain)
+    is_best = gain >= best_gain[b_grp]
+    best_b = np.zeros(n, dtype=np.int64)
+    np.maximum.at(best_b, b_grp[is_best], b[is_best])
+    return best_b, best_gain
 
 
 #: Most vertices the retry next to a peeled-from part tries (it shrinks from there to three).
