@@ -64,6 +64,23 @@ def test_simple_curve_radius_and_extent(radius, spiral_share):
     assert 0 < c["radius_se_m"] and abs(c["radius_m"] - radius) <= 2 * c["radius_se_m"] + 1e-6
 
 
+@pytest.mark.parametrize("spacing", [10.0, 15.0])
+def test_circular_part_ends_are_not_pulled_in_to_the_last_fitted_vertex(spacing):
+    """An arc between tangents ends somewhere between its last vertex and the next one: the
+    reported circular part must not stop at the last vertex on the arc (which puts each end
+    about half a spacing inside, on average over where the vertices fall)."""
+    radius, length = 300.0, 300.0 * np.radians(60.0)
+    insets = []
+    for phase in np.arange(0.0, spacing, spacing / 6):
+        start = 260.0 + phase
+        els = [Element("tangent", start, 0, 0), Element("arc", length, 1 / radius, 1 / radius, 1),
+               Element("tangent", 260.0, 0, 0)]
+        c = _curves([_digitise(build(els), spacing)]).curves
+        assert len(c) == 1
+        insets += [c["circ_start_m"].iloc[0] - start, start + length - c["circ_end_m"].iloc[0]]
+    assert abs(np.mean(insets)) < 0.35 * spacing
+
+
 def test_right_curve_direction():
     al = simple_curve(200.0, 50.0, left=False)
     c = _curves([_digitise(al)]).curves

@@ -391,8 +391,18 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     # the circular part lies where the fitted vertices are and the curvature is above
     # half the circle's: with sparse vertices the fit reaches into the tangents
     half_lo, half_hi = _half_level_extent(prof, p, sign, scale, gbase)
-    circ_start = np.maximum(p["lo"] - gbase, half_lo)
-    circ_end = np.minimum(p["hi"] - gbase, half_hi)
+    # the arc ends somewhere between its last fitted vertex and the first one left out:
+    # halfway is the unbiased guess
+    i0 = p["i0"].astype(np.int64)
+    i1 = p["i1"].astype(np.int64)
+    first_v = prof.v_off[chain]
+    last_v = prof.v_off[chain + 1] - 1
+    out_lo = prof.gm[np.maximum(i0 - 1, first_v)]
+    out_hi = prof.gm[np.minimum(i1, last_v)]
+    arc_lo = 0.5 * (p["lo"] + np.where(i0 > first_v, out_lo, p["lo"]))
+    arc_hi = 0.5 * (p["hi"] + np.where(i1 <= last_v, out_hi, p["hi"]))
+    circ_start = np.maximum(arc_lo - gbase, half_lo)
+    circ_end = np.minimum(arc_hi - gbase, half_hi)
     bad = circ_end <= circ_start
     mid = 0.5 * (p["lo"] + p["hi"]) - gbase
     circ_start = np.where(bad, mid, circ_start)
