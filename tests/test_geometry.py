@@ -148,6 +148,44 @@ def test_short_flatter_second_arc_of_a_compound_curve_is_found(spacing, ratio):
     assert found >= 8
 
 
+def _wandering_arc(radius, wander, seed, noise_m=0.1):
+    """A 90 degree arc between tangents whose radius wanders by the share ``wander`` (two
+    and a half waves along the arc, as a hand-drawn arc does), vertices 5-15 m apart."""
+    rng = np.random.default_rng(seed)
+    arc = radius * np.pi / 2
+    s = np.cumsum(rng.uniform(5.0, 15.0, 400))
+    s = s[s < 600.0 + arc]
+    phase = rng.uniform(0, 2 * np.pi)
+    th = np.clip((s - 300.0) / radius, 0.0, np.pi / 2)
+    r = radius * (1 + wander * np.sin(10.0 * th + phase))
+    on_arc = (s >= 300.0) & (s < 300.0 + arc)
+    x = np.where(s < 300.0, s - 300.0, np.where(on_arc, r * np.sin(th), radius))
+    y = np.where(s < 300.0, 0.0, np.where(on_arc, radius - r * np.cos(th), s - 300.0 - arc + radius))
+    return np.c_[x, y] + rng.normal(0, noise_m, (len(s), 2))
+
+
+@pytest.mark.parametrize("radius", [80.0, 200.0, 600.0])
+def test_a_wandering_hand_drawn_arc_is_one_curve(radius):
+    """A radius wandering by 0.05 % (0.3 m on 600 m, 5 % of the curvature) beyond 0.1 m
+    vertex noise is still one arc: not split into pieces of nearly equal radius."""
+    one = 0
+    for seed in range(10):
+        c = _curves([_wandering_arc(radius, 0.0005, seed)]).curves
+        one += len(c) == 1 and abs(c["radius_m"].iloc[0] / radius - 1) < 0.03
+    assert one >= 9
+
+
+def test_a_strongly_wandering_arc_is_not_lost():
+    """A radius wandering by 0.2 % (0.4 m on 200 m, 20 % of the curvature) beyond the
+    vertex noise: the bend is still found on every road, its longest arc near the mean
+    radius."""
+    for seed in range(10):
+        c = _curves([_wandering_arc(200.0, 0.002, seed)]).curves
+        assert len(c) >= 1, seed
+        longest = c.loc[c["circular_length_m"].idxmax(), "radius_m"]
+        assert 0.8 * 200.0 < longest < 1.25 * 200.0, seed
+
+
 def test_split_compound_keeps_a_single_noisy_circle_whole():
     """The split step on its own: a single noisy arc stays one part; two arcs of radius
     100 and 200 m become two, meeting at the vertex where the radius changes."""

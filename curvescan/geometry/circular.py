@@ -29,7 +29,7 @@ from . import _kernels as kn
 from ._ragged import (expand, find, group_argmax, group_quantile, range_quantile, scatter_max,
                       scatter_min, stops_around)
 from .circlefit import CircleFit, circle_gaps, fit_circles
-from .compound import split_compound
+from .compound import MIN_RADIUS_RATIO, split_compound
 
 __all__ = ["Profile", "circular_parts"]
 
@@ -54,6 +54,9 @@ SEED_VERTICES = 5
 #: The consensus never shrinks a circular part below this many vertices (three always
 #: lie on a circle).
 CONSENSUS_MIN_VERTICES = 5
+#: A part stuck at its seed is retried with a wider tolerance when its radius times the
+#: piece's mean curvature exceeds this (its circle is far flatter than the piece bends).
+STUCK_FLATNESS = 2.0
 #: The core of a piece is where its curvature is at least CORE_SHARE of its CORE_QUANTILE.
 CORE_QUANTILE = 0.9
 CORE_SHARE = 0.8
@@ -232,6 +235,33 @@ def _station_at(prof: Profile, g: np.ndarray, side: str) -> np.ndarray:
     return find(prof.gs, g, side=side)
 
 
+def _settle(prof: Profile, i0: np.ndarray, i1: np.ndarray, centre: np.ndarray,
+            vlo: np.ndarray, vhi: np.ndarray, tol: np.ndarray, least: np.ndarray,
+            fields: tuple):
+    """Fit the seed ``[i0, i1)`` and let fit and consensus alternate until the vertex set
+    settles (hyper fits). Returns the vertex range and its fit."""
+    fit = _fit(prof, i0, i1, refine=False)
+    # a seed whose vertices do not lie on one circle (RMSE beyond the tolerance) spans
+    # more than the arc, as on sparse vertices: start from the three around its middle
+    i0, i1 = _middle_three(fit, tol, centre, i0, i1, vlo, vhi)
+    fit = _fit(prof, i0, i1, refine=False)
+    for _ in range(4):
+        g0, g1 = _consensus(prof, fit, centre, vlo, vhi, tol)
+        # three vertices always lie on a circle: the consensus never shrinks below
+        # the seed (or the piece's vertices where it has fewer)
+        usable = (g1 - g0 >= least) & np.isfinite(fit.radius)
+        g0, g1 = np.where(usable, g0, i0), np.where(usable, g1, i1)
+        changed = (g0 != i0) | (g1 != i1)
+        i0, i1 = g0, g1
+        new = _fit(prof, i0, i1, refine=False)
+        ok = np.isfinite(new.radius)
+        for name in fields:
+            getattr(fit, name)[ok] = getattr(new, name)[ok]
+        if not changed.any():
+            break
+    return i0, i1, fit
+
+
 def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndarray, *,
                    tolerance_floor_m: float, min_length_m: float,
                    min_deflection_rad: float) -> dict[str, np.ndarray]:
@@ -280,27 +310,27 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         i0, i1 = _vertex_range(prof, prof.gs[cf], prof.gs[cl], vlo, vhi, minimum=SEED_VERTICES)
         centre_m = 0.5 * (prof.gs[cf] + prof.gs[cl])
         centre = np.clip(_nearest_vertex(prof, centre_m), i0, np.maximum(i1 - 1, i0))
-        fit = _fit(prof, i0, i1, refine=False)
         tol = consensus_tolerance(prof.sigma[chain], tolerance_floor_m)
-        # a seed whose vertices do not lie on one circle (RMSE beyond the tolerance) spans
-        # more than the arc, as on sparse vertices: start from the three around its middle
-        i0, i1 = _middle_three(fit, tol, centre, i0, i1, vlo, vhi)
-        fit = _fit(prof, i0, i1, refine=False)
         least = np.maximum(np.minimum(CONSENSUS_MIN_VERTICES, vhi - vlo), 3)
-        for _ in range(4):
-            g0, g1 = _consensus(prof, fit, centre, vlo, vhi, tol)
-            # three vertices always lie on a circle: the consensus never shrinks below
-            # the seed (or the piece's vertices where it has fewer)
-            usable = (g1 - g0 >= least) & np.isfinite(fit.radius)
-            g0, g1 = np.where(usable, g0, i0), np.where(usable, g1, i1)
-            changed = (g0 != i0) | (g1 != i1)
-            i0, i1 = g0, g1
-            new = _fit(prof, i0, i1, refine=False)
-            ok = np.isfinite(new.radius)
+        seed0, seed1 = i0, i1
+        i0, i1, fit = _settle(prof, i0, i1, centre, vlo, vhi, tol, least, fields)
+        # a hand-drawn arc wanders further from its circle than its vertex noise: where the
+        # consensus could not grow beyond the few vertices it started from although the
+        # piece has more, and its circle is far flatter than the piece bends on average,
+        # try once more from the seed with twice the tolerance
+        mean_k = np.abs(_piece_integral(prof, pf, pl, scale)) / np.maximum(
+            prof.s[pl] - prof.s[pf], 1e-9)
+        stuck = np.flatnonzero((i1 - i0 < least) & (vhi - vlo > least)
+                               & ~(fit.radius * mean_k <= STUCK_FLATNESS))
+        if len(stuck):
+            wide = 2.0 * tol[stuck]
+            a0, a1, afit = _settle(prof, seed0[stuck], seed1[stuck], centre[stuck],
+                                   vlo[stuck], vhi[stuck], wide, least[stuck], fields)
+            grew = (a1 - a0 >= least[stuck]) & np.isfinite(afit.radius)
+            j = stuck[grew]
+            i0[j], i1[j], tol[j] = a0[grew], a1[grew], wide[grew]
             for name in fields:
-                getattr(fit, name)[ok] = getattr(new, name)[ok]
-            if not changed.any():
-                break
+                getattr(fit, name)[j] = getattr(afit, name)[grew]
         i0, i1, fit = _tangent_ends(prof, fit, i0, i1, least, prof.sigma[chain], fields)
         # where the consensus kept a seed that misses its circle, the three vertices around
         # the middle are nearer the arc than a circle forced through transition vertices
@@ -543,7 +573,11 @@ def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
         chain = parts["chain"][a].astype(np.int64)
         base = np.maximum.reduce([prof.sigma[chain], parts["rmse"][a], parts["rmse"][b],
                                   np.full(len(a), tolerance_floor_m / 2.5)])
-        merge = np.isfinite(joint.radius) & (joint.rmse <= 1.3 * base)
+        # ... and two parts whose radii are closer than a compound curve's arcs may be are
+        # one arc too (a hand-digitised arc wanders a little more than its vertex noise)
+        ra, rb = parts["radius"][a], parts["radius"][b]
+        alike = np.maximum(ra, rb) < MIN_RADIUS_RATIO * np.minimum(ra, rb)
+        merge = np.isfinite(joint.radius) & ((joint.rmse <= 1.3 * base) | alike)
         # never merge overlapping pairs in one pass: take every other candidate in a run
         take = merge.copy()
         take[1:] &= ~(merge[:-1] & (b[:-1] == a[1:]))
