@@ -186,6 +186,21 @@ def test_a_strongly_wandering_arc_is_not_lost():
         assert 0.8 * 200.0 < longest < 1.25 * 200.0, seed
 
 
+def test_a_long_flat_arc_found_in_fragments_is_reported_whole():
+    """A 2.4 km arc of 1282 m after a sharper arc of a compound curve, 0.5 m noise: found in
+    fragments and merged, it must be read at the scale its own curvature allows, or the
+    noisy curvature cuts its reported extent to a small piece."""
+    els = [Element("tangent", 300.0, 0, 0), Element("transition", 95.0, 0, 1 / 641.0, 1),
+           Element("arc", 150.0, 1 / 641.0, 1 / 641.0, 1),
+           Element("arc", 2400.0, 1 / 1282.0, 1 / 1282.0, 2),
+           Element("transition", 95.0, 1 / 1282.0, 0, 2), Element("tangent", 300.0, 0, 0)]
+    al = build(els)
+    for seed in range(10):
+        xy, _ = vertices(al, np.random.default_rng(seed), jitter=(5.0, 25.0), noise_m=0.5)
+        c = _curves([xy]).curves
+        assert c["circular_length_m"].max() > 0.8 * 2400.0, seed
+
+
 def test_split_compound_keeps_a_single_noisy_circle_whole():
     """The split step on its own: a single noisy arc stays one part; two arcs of radius
     100 and 200 m become two, meeting at the vertex where the radius changes."""

@@ -589,7 +589,9 @@ def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
         parts["i0"][a], parts["i1"][a] = i0, i1
         parts["lo"][a] = prof.gm[i0]
         parts["hi"][a] = prof.gm[i1 - 1]
-        parts["scale"][a] = np.minimum(parts["scale"][a], parts["scale"][b])
+        # the joint arc is read at the finest scale its own curvature allows (a fragment's
+        # scale may be too fine for the joint arc's flatter curvature)
+        parts["scale"][a] = prof.choose_scale(1.0 / joint.radius[take], chain[take])
         keep = np.ones(n, dtype=bool)
         keep[b] = False
         parts = {k: v[keep] for k, v in parts.items()}
