@@ -408,7 +408,14 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         return {k: np.zeros(0) for k in ("piece", "chain", "scale", "sign", "lo", "hi", "i0",
                                            "i1", "round") + fields}
     parts = {k: np.concatenate([o[k] for o in out]) for k in out[0]}
-    return split_compound(prof.coords, prof.gm, prof.sigma, merge_fragments(prof, parts, tolerance_floor_m))
+    parts = split_compound(prof.coords, prof.gm, prof.sigma,
+                           merge_fragments(prof, parts, tolerance_floor_m))
+    # each arc of a split compound curve is read at the scale its own radius allows
+    ok = np.isfinite(parts["radius"]) & (parts["radius"] > 0)
+    parts["scale"] = np.where(ok, prof.choose_scale(1.0 / np.where(ok, parts["radius"], 1.0),
+                                                    parts["chain"].astype(np.int64)),
+                              parts["scale"])
+    return parts
 
 
 #: Most vertices at each end of a circular part tested as lying on the tangent instead.
