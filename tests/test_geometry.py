@@ -246,6 +246,25 @@ def test_broken_back_curves_keep_their_tangent():
     assert "tangent" in kinds[i + 1:kinds.index("curve", i + 1)]
 
 
+@pytest.mark.parametrize("tangent", [60.0, 110.0])
+def test_noisy_broken_back_curves_of_nearly_equal_radius_stay_two(tangent):
+    """Two left-hand arcs of 70 and 74 m with a short tangent between them, irregular
+    vertices with 0.5 m noise: nearly equal radii must not merge them into one flat arc."""
+    k1, k2 = 1 / 70.0, 1 / 74.0
+    els = [Element("tangent", 300.0, 0, 0), Element("arc", 55.0, k1, k1, 1),
+           Element("tangent", tangent, 0, 0), Element("transition", 30.0, 0, k2, 2),
+           Element("arc", 85.0, k2, k2, 2), Element("transition", 30.0, k2, 0, 2),
+           Element("tangent", 300.0, 0, 0)]
+    al = build(els)
+    two = 0
+    for seed in range(10):
+        xy, _ = vertices(al, np.random.default_rng(seed), jitter=(5.0, 25.0), noise_m=0.5)
+        c = _curves([xy]).curves
+        assert c["radius_m"].max() < 120.0, (seed, c["radius_m"].round().tolist())
+        two += len(c) == 2
+    assert two >= 8
+
+
 def test_noisy_irregular_vertices_radius_within_se():
     """Irregular 5-25 m spacing with 0.5 m noise: the radius lies within about two standard
     errors and the noise estimate is close to the truth."""

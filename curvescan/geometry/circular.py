@@ -54,6 +54,9 @@ SEED_VERTICES = 5
 #: The consensus never shrinks a circular part below this many vertices (three always
 #: lie on a circle).
 CONSENSUS_MIN_VERTICES = 5
+#: Neighbouring parts of nearly equal radius merge only where their joint circle misses
+#: the vertices by at most this many times the noise (a wandering arc, not two arcs).
+ALIKE_RMSE_SHARE = 4.0
 #: A part stuck at its seed is retried with a wider tolerance when its radius times the
 #: piece's mean curvature exceeds this (its circle is far flatter than the piece bends).
 STUCK_FLATNESS = 2.0
@@ -582,8 +585,12 @@ def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
                                   np.full(len(a), tolerance_floor_m / 2.5)])
         # ... and two parts whose radii are closer than a compound curve's arcs may be are
         # one arc too (a hand-digitised arc wanders a little more than its vertex noise)
+        # (two arcs of one direction with a tangent between them are not: their joint
+        # circle is far flatter than either and misses its vertices by metres)
         ra, rb = parts["radius"][a], parts["radius"][b]
-        alike = np.maximum(ra, rb) < MIN_RADIUS_RATIO * np.minimum(ra, rb)
+        alike = ((np.maximum(ra, rb) < MIN_RADIUS_RATIO * np.minimum(ra, rb))
+                 & (joint.radius < MIN_RADIUS_RATIO * np.maximum(ra, rb))
+                 & (joint.rmse <= ALIKE_RMSE_SHARE * base))
         merge = np.isfinite(joint.radius) & ((joint.rmse <= 1.3 * base) | alike)
         # never merge overlapping pairs in one pass: take every other candidate in a run
         take = merge.copy()
