@@ -529,10 +529,8 @@ def _near_arc(prof: Profile, which: np.ndarray, side: np.ndarray, near: np.ndarr
     out1 = np.zeros(len(which), dtype=np.int64)
     w_side, w_near = side[which], near[which]
     room = np.where(w_side > 0, vhi[which] - w_near, w_near - vlo[which])
-    for k in range(NEAR_ARC_VERTICES, 3, -1):
-        todo = np.flatnonzero(~found & (room >= k))
-        if len(todo) == 0:
-            continue
+
+    def on_circle(todo, k):
         j = which[todo]
         i0 = np.where(w_side[todo] > 0, w_near[todo], w_near[todo] - k)
         i1 = i0 + k
@@ -540,9 +538,20 @@ def _near_arc(prof: Profile, which: np.ndarray, side: np.ndarray, near: np.ndarr
         idx, grp = expand(i0, i1 - i0)
         gap = np.zeros(len(todo))
         np.maximum.at(gap, grp, np.nan_to_num(circle_gaps(prof.coords, idx, grp, fit), nan=np.inf))
+        return i0, i1, fit, np.isfinite(fit.radius) & (gap <= tol[j])
+
+    # where the four vertices next to the part are not on one circle, no longer run is
+    # tried (most retried pieces are transitions, which stop here)
+    first = np.flatnonzero(room >= 4)
+    room[first[~on_circle(first, 4)[3]]] = 0
+    for k in range(NEAR_ARC_VERTICES, 3, -1):
+        todo = np.flatnonzero(~found & (room >= k))
+        if len(todo) == 0:
+            continue
+        j = which[todo]
+        i0, i1, fit, ok = on_circle(todo, k)
         lo, hi = prof.gm[i0], prof.gm[i1 - 1]
         radius = np.where(np.isfinite(fit.radius), fit.radius, np.inf)
-        ok = np.isfinite(fit.radius) & (gap <= tol[j])
         ok &= (hi - lo >= min_length_m) & ((hi - lo) / radius >= min_deflection_rad)
         if not ok.any():
             continue
