@@ -81,6 +81,28 @@ def test_circular_part_ends_are_not_pulled_in_to_the_last_fitted_vertex(spacing)
     assert abs(np.mean(insets)) < 0.35 * spacing
 
 
+@pytest.mark.parametrize("phase", [0.0, 7.5, 12.5])
+def test_no_phantom_transitions_on_vertices_as_far_apart_as_the_window(phase):
+    """A plain arc between tangents digitised every 20 m: the curvature window blurs its
+    ends into ramps, but the vertices there lie on the tangents, so no transition is
+    reported; a spiralled arc on the same vertices keeps its 80 m transitions."""
+    radius, arc = 300.0, 300.0 * np.radians(60.0)
+    plain = [Element("tangent", 200.0 + phase, 0, 0),
+             Element("arc", arc, 1 / radius, 1 / radius, 1), Element("tangent", 200.0, 0, 0)]
+    c = _curves([_digitise(build(plain), 20.0)]).curves
+    assert len(c) == 1
+    assert c["transition_in_m"].iloc[0] < 5.0 and c["transition_out_m"].iloc[0] < 5.0
+    assert abs(c["s_start_m"].iloc[0] - (200.0 + phase)) < 10.0
+    k = 1 / radius
+    spiral = [Element("tangent", 200.0 + phase, 0, 0), Element("transition", 80.0, 0, k, 1),
+              Element("arc", 200.0, k, k, 1), Element("transition", 80.0, k, 0, 1),
+              Element("tangent", 200.0, 0, 0)]
+    c = _curves([_digitise(build(spiral), 20.0)]).curves
+    assert len(c) == 1
+    assert 55.0 < c["transition_in_m"].iloc[0] < 105.0
+    assert 55.0 < c["transition_out_m"].iloc[0] < 105.0
+
+
 def test_right_curve_direction():
     al = simple_curve(200.0, 50.0, left=False)
     c = _curves([_digitise(al)]).curves

@@ -433,6 +433,14 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     fine = prof.half_m[scale, chain]
     start = np.where(circ_start - start < 0.75 * fine, circ_start, start)
     end = np.where(end - circ_end < 0.75 * fine, circ_end, end)
+    # a transition needs vertices that leave the line touching the arc at its end: where
+    # every vertex of the ramp lies on that line (within the consensus tolerance), the
+    # ramp is the curvature window's blur of a plain tangent, as on sparse vertices
+    tol = consensus_tolerance(prof.sigma[chain], config.circle_tolerance_m)
+    straight_in = _on_end_tangent(prof, p, start + gbase, i0, i0, tol, first_v, last_v)
+    straight_out = _on_end_tangent(prof, p, end + gbase, i1 - 1, i1, tol, first_v, last_v)
+    start = np.where(straight_in, circ_start, start)
+    end = np.where(straight_out, circ_end, end)
     mid_next = 0.5 * (circ_end[:-1] + circ_start[1:])
     end[:-1] = np.where(same_next[:-1], mid_next, end[:-1])
     start[1:] = np.where(same_prev[1:], mid_next, start[1:])
@@ -499,6 +507,38 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     frame = resolve_overlaps(frame[ok.to_numpy()])
     frame.insert(0, "curve_id", np.arange(1, len(frame) + 1, dtype=np.int64))
     return frame
+
+
+def _on_end_tangent(prof, p, ramp_end, touch, edge, tol, first_v, last_v):
+    """Whether the vertices between the fitted vertices' ``edge`` and ``ramp_end`` (global
+    measure; the outer vertex at or beyond it included) lie each on the circle or on the line
+    from the outer vertex touching the circle next to the fitted vertex ``touch``, within
+    ``tol``: a plain tangent, no transition. False where no vertex lies there."""
+    before = ramp_end < prof.gm[touch]
+    outer = np.where(before, np.maximum(find(prof.gm, ramp_end, side="right") - 1, first_v),
+                     np.minimum(find(prof.gm, ramp_end, side="left"), last_v))
+    # ... and the next vertex out: two vertices fix the tangent's direction
+    lo = np.where(before, np.maximum(outer - 1, first_v), edge)
+    hi = np.where(before, edge, np.minimum(outer + 2, last_v + 1))
+    hi = np.maximum(hi, lo)
+    cx, cy, r = p["cx"], p["cy"], p["radius"]
+    # the two lines from the outer vertex touching the circle; take the one whose touching
+    # point is nearer the fitted vertex
+    px, py = prof.coords[outer, 0] - cx, prof.coords[outer, 1] - cy
+    dist = np.hypot(px, py)
+    half = np.arccos(np.clip(r / np.maximum(dist, 1e-12), -1.0, 1.0))
+    base = np.arctan2(py, px)
+    tx, ty = prof.coords[touch, 0] - cx, prof.coords[touch, 1] - cy
+    ang = np.where(np.cos(base + half - np.arctan2(ty, tx))
+                   >= np.cos(base - half - np.arctan2(ty, tx)), base + half, base - half)
+    ux, uy = np.cos(ang), np.sin(ang)
+    idx, grp = expand(lo, hi - lo)
+    vx, vy = prof.coords[idx, 0] - cx[grp], prof.coords[idx, 1] - cy[grp]
+    on_line = np.abs(vx * ux[grp] + vy * uy[grp] - r[grp])
+    on_circle = np.abs(np.hypot(vx, vy) - r[grp])
+    worst = np.zeros(len(lo))
+    np.maximum.at(worst, grp, np.minimum(on_line, on_circle))
+    return (hi > lo) & (dist >= r) & (worst <= tol)
 
 
 def _half_level_extent(prof, p, sign, scale, gbase):
