@@ -249,6 +249,12 @@ SCALE_FACTORS = (1, 2, 4, 8)
 PRIOR_DOF = 4.0
 
 
+#: Reliability classes: ``good`` needs a relative radius standard error of at most
+#: GOOD_REL_SE (two standard errors within 10 %) and 6 vertices; above POOR_REL_SE, under 4
+#: vertices or 2 degrees of circular arc it is ``poor``; ``fair`` between.
+GOOD_REL_SE = 0.05
+POOR_REL_SE = 0.25
+
 #: Shares of the consensus tolerance and of the fit RMSE taken as a systematic offset of
 #: the vertices in the radius standard error; calibrated with benchmarks/accuracy.py so
 #: that two standard errors cover 90-98 % of true radii in every scenario.
@@ -478,8 +484,8 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     rel_se = se / p["radius"]
     nvert = p["n"].astype(int)
     reliability = np.where(
-        (nvert < 4) | (circ_defl < 2.0) | ~(rel_se <= 0.25), "poor",
-        np.where((nvert < 6) | ~(rel_se <= 0.10), "fair", "good"))
+        (nvert < 4) | (circ_defl < 2.0) | ~(rel_se <= POOR_REL_SE), "poor",
+        np.where((nvert < 6) | ~(rel_se <= GOOD_REL_SE), "fair", "good"))
     frame = pd.DataFrame({
         "chain_id": chain,
         "s_start_m": start,
