@@ -146,6 +146,30 @@ def test_empty_layer_gets_an_index(tmp_path):
     check_spatial_indexes(out, layers=["one", "empty"])
 
 
+def test_index_from_envelopes_in_the_file(tmp_path):
+    # a layer whose rows were not recorded while written (pyogrio's own conversion, rows
+    # deleted, points without an envelope in their header): the envelopes are read back
+    import geopandas as gpd
+
+    rng = np.random.default_rng(3)
+    lines = [shapely.LineString(rng.uniform(0, 100, (4, 2))) for _ in range(300)]
+    lines[5], lines[9] = shapely.LineString(), None
+    frame = gpd.GeoDataFrame({"v": np.arange(300.0)}, geometry=lines, crs="EPSG:3857")
+    points = gpd.GeoDataFrame({"v": np.arange(50.0)},
+                              geometry=shapely.points(rng.uniform(0, 100, (50, 2))),
+                              crs="EPSG:3857")
+    out = tmp_path / "r.gpkg"
+    for name, layer in (("lines", frame), ("points", points)):
+        pyogrio.write_dataframe(layer, out, layer=name, append=out.exists(),
+                                layer_options={"SPATIAL_INDEX": "NO"})
+    con = sqlite3.connect(out)
+    with con:
+        con.execute("DELETE FROM lines WHERE v IN (1, 2, 3)")
+    con.close()
+    assert sorted(rtree.add_spatial_indexes(out)) == ["lines", "points"]
+    check_spatial_indexes(out, layers=["lines", "points"])
+
+
 def _wkb_cases():
     rng = np.random.default_rng(4)
     geoms = [shapely.LineString(rng.normal(size=(int(k), 2)) * 1000 + 5e5)
