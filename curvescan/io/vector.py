@@ -20,6 +20,7 @@ import pyogrio
 from pyogrio.errors import DataLayerError, DataSourceError as _PyogrioSourceError
 
 from ..errors import DataQualityWarning, DataSourceError, InputError, OutputExistsError
+from .rtree import IndexBuilder
 
 __all__ = ["read_layer", "list_line_layers", "write_layers", "check_output_path", "WkbLayer"]
 
@@ -160,8 +161,6 @@ def write_layers(
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part.gpkg", dir=target.parent)
     os.close(fd)
     os.unlink(tmp)
-    from .rtree import IndexBuilder
-
     index = IndexBuilder()
     try:
         for name, frame in layers.items():
