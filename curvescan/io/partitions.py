@@ -22,6 +22,7 @@ rows of a ranked layer on disk until every partition is in and the ranks are kno
 from __future__ import annotations
 
 import os
+import sqlite3
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -36,7 +37,8 @@ import pyogrio
 import shapely
 
 from ..errors import DataSourceError, InputError
-from .vector import _choose_layer, _first_line, check_output_path
+from .rtree import IndexBuilder
+from .vector import NO_INDEX, _choose_layer, _first_line, check_output_path
 
 __all__ = ["PartitionSource", "open_partitions", "is_parquet", "GpkgAppender", "ArrowLayer",
            "ArrowSpill"]
@@ -370,13 +372,17 @@ class GpkgAppender:
         self.descriptions = dict(descriptions)
         self.written: set[str] = set()
         self.templates: dict[str, Any] = {}
+        self.index: IndexBuilder | None = None
 
-    def spill(self, name: str) -> ArrowSpill:
-        """A new spill file for layer ``name``."""
+    def _folder(self) -> str:
         if self.spill_dir is None:
             self.spill_dir = tempfile.mkdtemp(prefix=f".{self.target.name}.",
                                               suffix=".spill", dir=self.target.parent)
-        return ArrowSpill(self.spill_dir, name)
+        return self.spill_dir
+
+    def spill(self, name: str) -> ArrowSpill:
+        """A new spill file for layer ``name``."""
+        return ArrowSpill(self._folder(), name)
 
     def append(self, name: str, frame: pd.DataFrame | ArrowLayer) -> None:
         """Append the rows of ``frame`` to layer ``name`` (created on first rows)."""
@@ -390,14 +396,20 @@ class GpkgAppender:
                                   "append": os.path.exists(self.tmp)}
         if not kwargs["append"]:  # GeoPackage 1.3, as export.write_gpkg writes it
             kwargs["dataset_options"] = {"VERSION": "1.3"}
-        if name not in self.written and name in self.descriptions:
-            kwargs["layer_metadata"] = {"DESCRIPTION": self.descriptions[name]}
+        if name not in self.written:  # spatial indexes are built once, in close()
+            kwargs["layer_options"] = NO_INDEX
+            if name in self.descriptions:
+                kwargs["layer_metadata"] = {"DESCRIPTION": self.descriptions[name]}
         try:
             if isinstance(frame, ArrowLayer):
                 geo = {} if frame.geometry_type is None else {
                     "geometry_name": "geometry", "geometry_type": frame.geometry_type,
                     "crs": frame.crs}
                 pyogrio.write_arrow(frame.table, self.tmp, **geo, **kwargs)
+                if frame.geometry_type is not None:
+                    if self.index is None:
+                        self.index = IndexBuilder(self._folder())
+                    self.index.add(name, frame.table.column("geometry"))
             else:
                 pyogrio.write_dataframe(frame if isinstance(frame, gpd.GeoDataFrame)
                                         else pd.DataFrame(frame), self.tmp, use_arrow=True,
@@ -417,6 +429,17 @@ class GpkgAppender:
                 self._write_empty(name, frame)
         for name, frame in last.items():
             self.append(name, frame)
+        try:
+            if self.index is not None:
+                self.index.build(self.tmp)
+            else:
+                IndexBuilder().build(self.tmp)
+        except sqlite3.Error as exc:
+            self.abort()
+            raise DataSourceError(_first_line(f"cannot write {self.target}: {exc}")) from None
+        except BaseException:
+            self.abort()
+            raise
         if finish is not None:
             finish(self.tmp)
         os.replace(self.tmp, self.target)
@@ -432,7 +455,7 @@ class GpkgAppender:
             kwargs["dataset_options"] = {"VERSION": "1.3"}
         if name in self.descriptions:
             kwargs["layer_metadata"] = {"DESCRIPTION": self.descriptions[name]}
-        pyogrio.write_dataframe(frame, self.tmp, **kwargs)
+        pyogrio.write_dataframe(frame, self.tmp, layer_options=NO_INDEX, **kwargs)
         self.written.add(name)
 
     def abort(self) -> None:

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import itertools
 import os
+import sqlite3
 import tempfile
 import warnings
 from pathlib import Path
@@ -19,6 +20,7 @@ import pyogrio
 from pyogrio.errors import DataLayerError, DataSourceError as _PyogrioSourceError
 
 from ..errors import DataQualityWarning, DataSourceError, InputError, OutputExistsError
+from .rtree import IndexBuilder
 
 __all__ = ["read_layer", "list_line_layers", "write_layers", "check_output_path", "WkbLayer"]
 
@@ -159,15 +161,17 @@ def write_layers(
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part.gpkg", dir=target.parent)
     os.close(fd)
     os.unlink(tmp)
+    index = IndexBuilder()
     try:
         for name, frame in layers.items():
             meta = dict((layer_metadata or {}).get(name, {}))
-            kwargs = {"layer": name, "driver": "GPKG", "append": os.path.exists(tmp)}
+            kwargs = {"layer": name, "driver": "GPKG", "append": os.path.exists(tmp),
+                      "layer_options": NO_INDEX}
             if not kwargs["append"]:  # GeoPackage 1.3: desktop GIS on GDAL < 3.7 warn on 1.4
                 kwargs["dataset_options"] = {"VERSION": "1.3"}
             if meta:
                 kwargs["layer_metadata"] = meta
-            stream = _arrow_stream(frame)
+            stream = _arrow_stream(frame, index, name)
             if stream is not None:  # batches: never the whole layer as WKB at once
                 reader, geometry = stream
                 pyogrio.write_arrow(reader, tmp, **geometry, **kwargs)
@@ -179,13 +183,14 @@ def write_layers(
                 pyogrio.write_dataframe(
                     pd.DataFrame(frame), tmp, use_arrow=True, **kwargs
                 )
+        index.build(tmp)
         if finish is not None:
             finish(tmp)
         os.replace(tmp, target)
     except Exception as exc:
         if os.path.exists(tmp):
             os.unlink(tmp)
-        if isinstance(exc, (_PyogrioSourceError, DataLayerError, OSError)):
+        if isinstance(exc, (_PyogrioSourceError, DataLayerError, OSError, sqlite3.Error)):
             raise DataSourceError(_first_line(f"cannot write {target}: {exc}")) from None
         raise
     return target
@@ -193,6 +198,11 @@ def write_layers(
 
 #: Rows per Arrow batch when writing a layer: bounds the memory the write needs.
 WRITE_BATCH_ROWS = 65536
+
+#: Layer creation options of every output layer: no spatial index while rows are written;
+#: :mod:`curvescan.io.rtree` builds it once all rows are in (GDAL would otherwise update
+#: it row by row on every append to an existing layer).
+NO_INDEX = {"SPATIAL_INDEX": "NO"}
 
 #: Layer geometry type names, by shapely type id.
 _TYPE_NAMES = {0: "Point", 1: "LineString", 2: "LineString", 3: "Polygon",
@@ -233,13 +243,15 @@ def _gdal_crs(crs: Any) -> str | None:
     return f"EPSG:{epsg}" if epsg else crs.to_wkt("WKT1_GDAL")
 
 
-def _arrow_stream(frame: Any) -> tuple[Any, dict[str, Any]] | None:
+def _arrow_stream(frame: Any, index: Any = None,
+                  name: str = "") -> tuple[Any, dict[str, Any]] | None:
     """The layer as a stream of Arrow batches with WKB geometry, and its geometry fields.
 
     Covers :class:`WkbLayer` and layers of one geometry type whose columns Arrow converts
     unambiguously (no ``object`` columns); returns None for anything else, which
     pyogrio's own conversion writes. The fields and values written are those
-    ``pyogrio.write_dataframe`` writes.
+    ``pyogrio.write_dataframe`` writes. ``index`` (a :class:`curvescan.io.rtree.IndexBuilder`)
+    records the envelopes of the batches as layer ``name``.
     """
     import numpy as np
     import pyarrow as pa
@@ -288,7 +300,10 @@ def _arrow_stream(frame: Any) -> tuple[Any, dict[str, Any]] | None:
         if geom_name is not None and not wkb_given:
             wkb = shapely.to_wkb(np.asarray(part.geometry.values))
             table = table.append_column(geom_name, pa.array(wkb, type=pa.binary()))
-        return table.combine_chunks().to_batches()[0]
+        out = table.combine_chunks().to_batches()[0]
+        if index is not None and geom_name is not None:
+            index.add(name, out.column(geom_name))
+        return out
 
     first = batch(0)
     rest = (batch(start) for start in range(WRITE_BATCH_ROWS, len(frame), WRITE_BATCH_ROWS))
