@@ -233,3 +233,38 @@ def test_bulk_built_tree_answers_like_a_scan():
         con.execute("INSERT INTO r VALUES (1, 0, 1, 0, 1)")
     assert con.execute("SELECT rtreecheck('r')").fetchone()[0] == "ok"
     assert con.execute("SELECT count(*) FROM r").fetchone()[0] == n - 500 + 1
+
+
+def test_a_tree_that_fails_sqlites_check_is_rebuilt_row_by_row(monkeypatch):
+    """Should the bulk-built tree ever fail SQLite's rtreecheck, the index is rebuilt through
+    SQLite's own inserts (and a warning recorded), never left broken."""
+    import sqlite3
+    import warnings
+
+    from curvescan.io import rtree as rt
+
+    rng = np.random.default_rng(3)
+    lo = rng.uniform(0, 1000, (500, 2))
+    boxes = np.column_stack([lo[:, 0], lo[:, 0] + 5, lo[:, 1], lo[:, 1] + 5])
+    con = sqlite3.connect(":memory:")
+    con.execute("CREATE VIRTUAL TABLE r USING rtree(id, minx, maxx, miny, maxy)")
+    real_pack = rt._pack
+
+    def broken_pack(ids, b):  # a parent cell that does not cover its child node
+        levels = real_pack(ids, b)
+        parent_ids, parent_boxes, parent_node = levels[1]
+        parent_boxes = parent_boxes.copy()
+        parent_boxes[0] = [0.0, 0.1, 0.0, 0.1]
+        return [levels[0], (parent_ids, parent_boxes, parent_node)] + list(levels[2:])
+
+    monkeypatch.setattr(rt, "_pack", broken_pack)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        rt.build_rtree(con, "r", np.arange(1, 501), boxes)
+    assert any("rebuilt row by row" in str(w.message) for w in caught)
+    assert con.execute("SELECT rtreecheck('r')").fetchone()[0] == "ok"
+    got = sorted(r[0] for r in con.execute(
+        "SELECT id FROM r WHERE maxx >= 100 AND minx <= 300 AND maxy >= 100 AND miny <= 300"))
+    want = sorted((np.flatnonzero((boxes[:, 1] >= 100) & (boxes[:, 0] <= 300)
+                                  & (boxes[:, 3] >= 100) & (boxes[:, 2] <= 300)) + 1).tolist())
+    assert got == want

@@ -394,6 +394,36 @@ def build_rtree(con: sqlite3.Connection, rtree: str, ids: np.ndarray,
     if parent_rows:
         con.executemany(f"INSERT INTO {_quote(rtree + '_parent')} VALUES (?, ?)",
                         np.concatenate(parent_rows).tolist())
+    if not _tree_ok(con, rtree):
+        # never leave a file whose index SQLite does not accept: rebuild it through
+        # SQLite's own inserts (slower, always valid) and say so
+        import warnings
+
+        from ..errors import DataQualityWarning
+
+        warnings.warn(f"spatial index {rtree}: the bulk-built tree failed SQLite's check; "
+                      "rebuilt row by row", DataQualityWarning, stacklevel=2)
+        _insert_rows(con, rtree, ids, boxes)
+
+
+def _tree_ok(con: sqlite3.Connection, rtree: str) -> bool:
+    """SQLite's own structural check of an R*Tree (``rtreecheck``, SQLite 3.24 and later;
+    where it is missing the tree is taken as built)."""
+    try:
+        return con.execute("SELECT rtreecheck(?)", (rtree,)).fetchone()[0] == "ok"
+    except sqlite3.OperationalError:
+        return True
+
+
+def _insert_rows(con: sqlite3.Connection, rtree: str, ids: np.ndarray,
+                 boxes: np.ndarray) -> None:
+    """Empty ``rtree`` and insert every box through the R*Tree module itself."""
+    con.execute(f"DROP TABLE {_quote(rtree)}")
+    con.execute(f"CREATE VIRTUAL TABLE {_quote(rtree)} USING rtree(id, minx, maxx, miny, maxy)")
+    b = np.asarray(boxes, dtype=float)
+    con.executemany(f"INSERT INTO {_quote(rtree)} VALUES (?, ?, ?, ?, ?)",
+                    zip(np.asarray(ids).tolist(), b[:, 0].tolist(), b[:, 1].tolist(),
+                        b[:, 2].tolist(), b[:, 3].tolist()))
 
 
 def add_spatial_indexes(path: str, tables: Iterable[str] | None = None,
