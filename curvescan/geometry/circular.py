@@ -321,10 +321,10 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         # consensus could not grow beyond the few vertices it started from although the
         # piece has more, and its circle is far flatter than the piece bends on average,
         # try once more from the seed with twice the tolerance
-        mean_k = np.abs(_piece_integral(prof, pf, pl, scale)) / np.maximum(
-            prof.s[pl] - prof.s[pf], 1e-9)
-        stuck = np.flatnonzero((i1 - i0 < least) & (vhi - vlo > least)
-                               & ~(fit.radius * mean_k <= STUCK_FLATNESS))
+        stuck = np.flatnonzero((i1 - i0 < least) & (vhi - vlo > least))
+        mean_k = np.abs(_piece_integral(prof, pf[stuck], pl[stuck], scale[stuck])) / np.maximum(
+            prof.s[pl[stuck]] - prof.s[pf[stuck]], 1e-9)
+        stuck = stuck[~(fit.radius[stuck] * mean_k <= STUCK_FLATNESS)]
         if len(stuck):
             wide = 2.0 * tol[stuck]
             a0, a1, afit = _settle(prof, seed0[stuck], seed1[stuck], centre[stuck],
@@ -443,10 +443,12 @@ def _tangent_ends(prof: Profile, fit: CircleFit, i0: np.ndarray, i1: np.ndarray,
     """
     i0, i1 = i0.copy(), i1.copy()
     floor = np.maximum(least, 4)
+    # a part that did not move keeps its circle, so a later round would not move it either
+    again = np.ones(len(i0), dtype=bool)
     for _ in range(TANGENT_END_ROUNDS):
         n = i1 - i0
         k = np.minimum(n // 3, TANGENT_END_VERTICES)
-        active = np.flatnonzero(np.isfinite(fit.radius) & (sigma > 0) & (k >= 1)
+        active = np.flatnonzero(again & np.isfinite(fit.radius) & (sigma > 0) & (k >= 1)
                                 & (n - 1 > floor))
         if len(active) == 0:
             break
@@ -472,6 +474,7 @@ def _tangent_ends(prof: Profile, fit: CircleFit, i0: np.ndarray, i1: np.ndarray,
         ok = np.isfinite(new.radius)
         for name in fields:
             getattr(fit, name)[j[ok]] = getattr(new, name)[ok]
+        again = moved
     return i0, i1, fit
 
 
