@@ -611,6 +611,84 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
         return out
 
     @njit(cache=True)
+    def wkb_envelope_kernel(data, offsets, valid, out, done):
+        """Envelopes (minx, maxx, miny, maxy) of little-endian WKB LineStrings and
+        MultiLineStrings into ``out``; ``done`` marks the rows read (see
+        ``io.rtree.wkb_envelopes``, whose fallback is shapely)."""
+        b4 = np.empty(4, np.uint8)
+        scratch = np.empty(1 << 16, np.uint8)
+        for i in range(offsets.shape[0] - 1):
+            if not valid[i]:
+                done[i] = True
+                continue
+            p = offsets[i]
+            end = offsets[i + 1]
+            if end - p < 9 or data[p] != 1:
+                continue
+            for k in range(4):
+                b4[k] = data[p + 1 + k]
+            kind = b4.view(np.uint32)[0]
+            base = kind % 1000
+            dims = 2 + (1 if (kind // 1000) in (1, 2) else 0) + (2 if kind // 1000 == 3 else 0)
+            if kind > 3999 or base not in (2, 5):
+                continue
+            if base == 2:
+                parts = 1
+                q = p
+            else:
+                for k in range(4):
+                    b4[k] = data[p + 5 + k]
+                parts = b4.view(np.uint32)[0]
+                q = p + 9
+            x0 = np.inf
+            x1 = -np.inf
+            y0 = np.inf
+            y1 = -np.inf
+            ok = True
+            for part in range(parts):
+                if base == 5:  # each part has its own header: byte order and type
+                    if q + 9 > end or data[q] != 1:
+                        ok = False
+                        break
+                    for k in range(4):
+                        b4[k] = data[q + 1 + k]
+                    if b4.view(np.uint32)[0] != kind - 3:
+                        ok = False
+                        break
+                    r = q + 5
+                else:
+                    r = p + 5
+                for k in range(4):
+                    b4[k] = data[r + k]
+                m = b4.view(np.uint32)[0]
+                r += 4
+                size = 8 * dims * m
+                if r + size > end:
+                    ok = False
+                    break
+                if size > scratch.shape[0]:
+                    scratch = np.empty(2 * size, np.uint8)
+                scratch[:size] = data[r:r + size]  # aligned copy of the points
+                values = scratch[:size].view(np.float64)
+                for j in range(m):
+                    x = values[j * dims]
+                    y = values[j * dims + 1]
+                    x0 = min(x0, x)
+                    x1 = max(x1, x)
+                    y0 = min(y0, y)
+                    y1 = max(y1, y)
+                q = r + size
+            if not ok:
+                continue
+            if x0 <= x1:
+                out[i, 0] = x0
+                out[i, 1] = x1
+                out[i, 2] = y0
+                out[i, 3] = y1
+            done[i] = True
+
+
+    @njit(cache=True)
     def tangent_end_kernel(coords, end, step, k, cx, cy, r, sigma):
         """Best number of end vertices to move from the circle to a tangent line, and the
         drop in the sum of squares in noise variances (see ``circular._tangent_end_gain``)."""

@@ -413,7 +413,8 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
     parts = {k: np.concatenate([o[k] for o in out]) for k in out[0]}
     parts = split_compound(prof.coords, prof.gm, prof.sigma,
                            merge_fragments(prof, parts, tolerance_floor_m))
-    # each arc of a split compound curve is read at the scale its own radius allows
+    # each part is read at the scale its own radius allows: a merged arc is flatter than its
+    # fragments, each arc of a split compound curve differs from the part it came from
     ok = np.isfinite(parts["radius"]) & (parts["radius"] > 0)
     parts["scale"] = np.where(ok, prof.choose_scale(1.0 / np.where(ok, parts["radius"], 1.0),
                                                     parts["chain"].astype(np.int64)),
@@ -515,7 +516,7 @@ def _tangent_end_gain(coords: np.ndarray, end: np.ndarray, step: int, k: np.ndar
     return best_b, best_gain
 
 
-#: Most vertices the retry next to a peeled-from part tries (it shrinks from there to three).
+#: Most vertices the retry next to a peeled-from part tries (it shrinks from there to four).
 NEAR_ARC_VERTICES = 8
 
 
@@ -546,13 +547,19 @@ def _near_arc(prof: Profile, which: np.ndarray, side: np.ndarray, near: np.ndarr
     # where the four vertices next to the part are not on one circle, no longer run is
     # tried (most retried pieces are transitions, which stop here)
     first = np.flatnonzero(room >= 4)
-    room[first[~on_circle(first, 4)[3]]] = 0
+    four = on_circle(first, 4)
+    room[first[~four[3]]] = 0
     for k in range(NEAR_ARC_VERTICES, 3, -1):
         todo = np.flatnonzero(~found & (room >= k))
         if len(todo) == 0:
             continue
         j = which[todo]
-        i0, i1, fit, ok = on_circle(todo, k)
+        if k == 4:  # already fitted above
+            rows = np.searchsorted(first, todo)
+            i0, i1, ok = four[0][rows], four[1][rows], four[3][rows]
+            fit = CircleFit(**{f: getattr(four[2], f)[rows] for f in CircleFit.__dataclass_fields__})
+        else:
+            i0, i1, fit, ok = on_circle(todo, k)
         lo, hi = prof.gm[i0], prof.gm[i1 - 1]
         radius = np.where(np.isfinite(fit.radius), fit.radius, np.inf)
         ok &= (hi - lo >= min_length_m) & ((hi - lo) / radius >= min_deflection_rad)
@@ -615,9 +622,6 @@ def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
         parts["i0"][a], parts["i1"][a] = i0, i1
         parts["lo"][a] = prof.gm[i0]
         parts["hi"][a] = prof.gm[i1 - 1]
-        # the joint arc is read at the finest scale its own curvature allows (a fragment's
-        # scale may be too fine for the joint arc's flatter curvature)
-        parts["scale"][a] = prof.choose_scale(1.0 / joint.radius[take], chain[take])
         keep = np.ones(n, dtype=bool)
         keep[b] = False
         parts = {k: v[keep] for k, v in parts.items()}

@@ -128,8 +128,7 @@ def wkb_envelopes(wkb: Any) -> np.ndarray:
     if n == 0:
         return out
     todo = np.ones(n, bool)
-    kernel = _kernel()
-    if kn.compiled() and kernel is not None:
+    if kn.compiled():
         bufs = arr.buffers()
         width = np.int64 if pa.types.is_large_binary(arr.type) else np.int32
         offsets = np.frombuffer(bufs[1], width)[arr.offset:arr.offset + n + 1].astype(np.int64)
@@ -137,7 +136,7 @@ def wkb_envelopes(wkb: Any) -> np.ndarray:
                 else np.zeros(0, np.uint8))
         valid = ~np.asarray(arr.is_null()).astype(bool) if arr.null_count else np.ones(n, bool)
         done = np.zeros(n, bool)
-        kernel(data, offsets, valid, out, done)
+        kn.wkb_envelope_kernel(data, offsets, valid, out, done)
         todo = ~done
     if todo.any():
         import shapely
@@ -148,99 +147,6 @@ def wkb_envelopes(wkb: Any) -> np.ndarray:
         b = shapely.bounds(geoms)  # minx, miny, maxx, maxy; NaN for empty and None
         out[sel] = b[:, [0, 2, 1, 3]]
     return out
-
-
-def _make_wkb_kernel():
-    from ..geometry import _kernels as kn
-
-    if not kn.HAVE_NUMBA:  # pragma: no cover - depends on the environment
-        return None
-    from numba import njit
-
-    @njit(cache=True)
-    def kernel(data, offsets, valid, out, done):  # pragma: no cover - compiled
-        b4 = np.empty(4, np.uint8)
-        scratch = np.empty(1 << 16, np.uint8)
-        for i in range(offsets.shape[0] - 1):
-            if not valid[i]:
-                done[i] = True
-                continue
-            p = offsets[i]
-            end = offsets[i + 1]
-            if end - p < 9 or data[p] != 1:
-                continue
-            for k in range(4):
-                b4[k] = data[p + 1 + k]
-            kind = b4.view(np.uint32)[0]
-            base = kind % 1000
-            dims = 2 + (1 if (kind // 1000) in (1, 2) else 0) + (2 if kind // 1000 == 3 else 0)
-            if kind > 3999 or base not in (2, 5):
-                continue
-            if base == 2:
-                parts = 1
-                q = p
-            else:
-                for k in range(4):
-                    b4[k] = data[p + 5 + k]
-                parts = b4.view(np.uint32)[0]
-                q = p + 9
-            x0 = np.inf
-            x1 = -np.inf
-            y0 = np.inf
-            y1 = -np.inf
-            ok = True
-            for part in range(parts):
-                if base == 5:  # each part has its own header: byte order and type
-                    if q + 9 > end or data[q] != 1:
-                        ok = False
-                        break
-                    for k in range(4):
-                        b4[k] = data[q + 1 + k]
-                    if b4.view(np.uint32)[0] != kind - 3:
-                        ok = False
-                        break
-                    r = q + 5
-                else:
-                    r = p + 5
-                for k in range(4):
-                    b4[k] = data[r + k]
-                m = b4.view(np.uint32)[0]
-                r += 4
-                size = 8 * dims * m
-                if r + size > end:
-                    ok = False
-                    break
-                if size > scratch.shape[0]:
-                    scratch = np.empty(2 * size, np.uint8)
-                scratch[:size] = data[r:r + size]  # aligned copy of the points
-                values = scratch[:size].view(np.float64)
-                for j in range(m):
-                    x = values[j * dims]
-                    y = values[j * dims + 1]
-                    x0 = min(x0, x)
-                    x1 = max(x1, x)
-                    y0 = min(y0, y)
-                    y1 = max(y1, y)
-                q = r + size
-            if not ok:
-                continue
-            if x0 <= x1:
-                out[i, 0] = x0
-                out[i, 1] = x1
-                out[i, 2] = y0
-                out[i, 3] = y1
-            done[i] = True
-
-    return kernel
-
-
-_KERNEL: list = []
-
-
-def _kernel():
-    if not _KERNEL:
-        _KERNEL.append(_make_wkb_kernel())
-    return _KERNEL[0]
 
 
 class IndexBuilder:
