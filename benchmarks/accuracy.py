@@ -17,7 +17,8 @@ truth:
 Scenarios: ``clean`` (vertices every 10 m), ``noisy`` (irregular 5-25 m, 0.5 m noise),
 ``simplified`` (Douglas-Peucker 0.5 m plus 0.2 m noise), ``split`` (clean, features split
 at random vertices and some reversed), ``sparse`` (20-60 m, 0.05 m noise) and ``dense``
-(1-3 m, 0.3 m noise, like a GPS trace).
+(1-3 m, 0.3 m noise, like a GPS trace), and ``noded`` (10-40 m, 0.1 m noise, a point
+on 30 % of the chords as side roads and splits leave them, features split).
 
 Usage::
 
@@ -41,7 +42,7 @@ import pyproj
 
 import curvescan
 from curvescan.prepare import point_scale
-from curvescan.synthetic import random_alignment, split_features, vertices
+from curvescan.synthetic import add_chord_points, random_alignment, split_features, vertices
 
 # a transverse Mercator with unit scale at its centre: within the +-60 km the roads cover,
 # map distances equal ground distances to 0.005 %, so the synthetic truth is ground truth
@@ -55,15 +56,24 @@ SCENARIOS = {
     # ones (GPS traces)
     "sparse": dict(jitter=(20.0, 60.0), noise_m=0.05),
     "dense": dict(jitter=(1.0, 3.0), noise_m=0.3),
+    # points on 30 % of the chords (side roads joining, splits) and features split at
+    # random vertices: the curves must be those of the same lines without the points
+    "noded": dict(jitter=(10.0, 40.0), noise_m=0.1, chord_points=0.3, split=True),
 }
 MAX_R, MIN_DEFL = 1500.0, 10.0
 SHORT_ARC_M = 30.0
 
 
-def make_roads(n_roads: int, scenario: str, seed: int = 1):
-    """Digitised roads (one feature each, or split pieces) plus truth and reference lines."""
+def make_roads(n_roads: int, scenario: str, seed: int = 1, chord_points: bool = True):
+    """Digitised roads (one feature each, or split pieces) plus truth and reference lines.
+
+    ``chord_points=False`` gives a scenario's lines without the points it adds on chords
+    (and unsplit), to compare with."""
     spec = dict(SCENARIOS[scenario])
     split = spec.pop("split", False)
+    points_share = spec.pop("chord_points", 0.0)
+    if not chord_points:
+        points_share, split = 0.0, False
     rng = np.random.default_rng(seed)
     geoms, road_of, truths, refs, noise = [], [], [], [], spec.get("noise_m", 0.0)
     against = []
@@ -93,6 +103,8 @@ def make_roads(n_roads: int, scenario: str, seed: int = 1):
         refs.append(ref)
         true_vertices.append((exact + offset, s))
         srng = np.random.default_rng(seed * 7_919 + i)  # keeps the roads equal to "clean"
+        if points_share:
+            xy, _ = add_chord_points(xy, np.random.default_rng(seed * 3_571 + i), points_share)
         pieces = split_features(xy, srng, int(srng.integers(2, 5))) if split else [xy]
         for p in pieces:
             geoms.append(shapely.LineString(p))
@@ -262,6 +274,17 @@ def run(scenarios, n_roads, seed=1, **params):
         b = np.sort(results["split"].curves["radius_m"].to_numpy())
         same = len(a) == len(b) and np.allclose(a, b, rtol=1e-6)
         report["split"]["same_curves_as_unsplit"] = float(same) if same else float(
+            np.isin(np.round(b, 3), np.round(a, 3)).mean())
+    if "noded" in results:
+        # the points on chords carry no shape: the same curves as the lines without them
+        frame, _, _ = make_roads(n_roads, "noded", seed, chord_points=False)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            plain = curvescan.scan(frame, crs=CRS, **params)
+        a = np.sort(plain.curves["radius_m"].to_numpy())
+        b = np.sort(results["noded"].curves["radius_m"].to_numpy())
+        same = len(a) == len(b) and np.allclose(a, b, rtol=1e-6)
+        report["noded"]["same_curves_as_without_points"] = float(same) if same else float(
             np.isin(np.round(b, 3), np.round(a, 3)).mean())
     return report
 

@@ -248,6 +248,20 @@ def _project(line: shapely.LineString, pts: np.ndarray) -> np.ndarray:
     return shapely.line_locate_point(line, shapely.points(pts))
 
 
+def add_chord_points(xy: np.ndarray, rng: np.random.Generator, share: float = 0.3
+                     ) -> tuple[np.ndarray, np.ndarray]:
+    """Put a point on a share of the segments, somewhere between 20 % and 80 % of the way,
+    exactly on the chord: what a side road joining or a feature split leaves on a
+    digitised line. Returns the new vertex sequence and the indices of the added points."""
+    out, added = [xy[0]], []
+    for a, b in zip(xy[:-1], xy[1:]):
+        if rng.random() < share:
+            out.append(a + rng.uniform(0.2, 0.8) * (b - a))
+            added.append(len(out) - 1)
+        out.append(b)
+    return np.array(out), np.array(added, dtype=np.int64)
+
+
 def split_features(xy: np.ndarray, rng: np.random.Generator, n_pieces: int = 3,
                    reverse_share: float = 0.5) -> list[np.ndarray]:
     """Cut a vertex sequence at random vertices into pieces; reverse some pieces."""

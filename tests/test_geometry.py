@@ -324,17 +324,22 @@ def test_noisy_irregular_vertices_radius_within_se():
     """Irregular 5-25 m spacing with 0.5 m noise: the radius lies within about two standard
     errors and the noise estimate is close to the truth."""
     al = simple_curve(300.0, 70.0, spiral_m=50.0, tangent_m=400.0)
-    rng = np.random.default_rng(5)
     hits = 0
+    noise = []
     for k in range(20):
         xy, _ = vertices(al, np.random.default_rng(k), jitter=(5.0, 25.0), noise_m=0.5)
         c = _curves([xy]).curves
         assert len(c) == 1
         r, se = c["radius_m"].iloc[0], c["radius_se_m"].iloc[0]
         hits += abs(r - 300.0) <= 2 * se
-        assert c["noise_m"].iloc[0] == pytest.approx(0.5, rel=0.35)
+        noise.append(c["noise_m"].iloc[0])
     assert hits >= 16
-    del rng
+    # the estimate is the upper median of about 80 vertex offsets: its own spread is about
+    # 13 % (1 / (2 f sqrt(n)) for the median of |N(0, 1)|, f = 0.64 at it), so one draw in
+    # twenty may land beyond 35 %
+    noise = np.array(noise)
+    assert np.median(noise) == pytest.approx(0.5, rel=0.1)
+    assert (np.abs(noise / 0.5 - 1.0) <= 0.35).sum() >= 18
 
 
 @pytest.mark.parametrize("radius,deflection", [(40.0, 86.0), (200.0, 40.0)])
@@ -381,6 +386,91 @@ def test_split_and_reversed_features_find_the_same_curves():
     split = _curves(parts).curves
     assert len(split) == len(whole) == 1
     assert split["radius_m"].iloc[0] == pytest.approx(whole["radius_m"].iloc[0], rel=1e-9)
+
+
+def test_shape_vertices_leaves_out_single_points_on_a_chord():
+    """A point on the segment between its neighbours carries no shape; a run of collinear
+    points (a tangent digitised point by point), a point that doubles back and the ends
+    stay."""
+    from curvescan.geometry.resample import shape_vertices
+    arc = np.array([[0.0, 0.0], [30.0, 2.0], [58.0, 8.0], [84.0, 18.0]])
+    on_chord = 0.4 * arc[1] + 0.6 * arc[2] + [0.003, -0.004]  # within 1 cm, as OSM rounds
+    run = np.array([[100.0, 24.0], [110.0, 28.0], [120.0, 32.0], [130.0, 36.0]])
+    back = np.array([[125.0, 34.0], [140.0, 30.0]])  # 125 lies on 130->... doubling back
+    line = np.vstack([arc[:2], on_chord, arc[2:], run, back])
+    keep = shape_vertices(line, np.array([0, len(line)]), 0.01)
+    assert not keep[2]
+    assert keep[[0, 1, 3, 4, 5, 6, 7, 8, len(line) - 1]].all()
+    # the doubling-back vertex lies on the line of its neighbours but outside their segment
+    assert keep[9]
+    assert keep.sum() == len(line) - 1
+    # a tighter tolerance keeps the rounded point; two chains never mix
+    assert shape_vertices(line, np.array([0, len(line)]), 0.001).all()
+    two = shape_vertices(np.vstack([line, line]), np.array([0, len(line), 2 * len(line)]), 0.01)
+    assert (~two).sum() == 2 and not two[2] and not two[len(line) + 2]
+
+
+@pytest.mark.parametrize("noise", [0.0, 0.05])
+def test_points_added_on_chords_do_not_change_the_curves(noise):
+    """Sparse vertices (25-40 m) with a point added on every chord that spans the curve, as
+    splits and side roads leave them, and the features split there: the same curves as the
+    line as digitised (the points lie up to 2 m inside the arc). Without leaving them out,
+    the circular part was 1-6 m shorter and moved (and on the benchmark's networks, with
+    a point on 30 % of all chords, recall fell from 0.995 to 0.71 on exact vertices)."""
+    al = simple_curve(150.0, 70.0, spiral_m=40.0, tangent_m=250.0)
+    xy, _ = vertices(al, np.random.default_rng(3), jitter=(25.0, 40.0), noise_m=noise)
+    curve = al.truth().iloc[0]
+    along = np.r_[0.0, np.cumsum(np.hypot(*np.diff(xy, axis=0).T))]
+    out, cuts = [xy[0]], []
+    for i, (a, b) in enumerate(zip(xy[:-1], xy[1:])):
+        if along[i + 1] > curve["s_start_m"] and along[i] < curve["s_end_m"]:
+            out.append(a + 0.45 * (b - a))
+            cuts.append(len(out) - 1)
+        out.append(b)
+    dense = np.array(out)
+    assert len(cuts) >= 5
+    parts = [dense[a:b + 1] for a, b in zip([0] + cuts, cuts + [len(dense) - 1])]
+    whole = _curves([xy]).curves
+    geo = _curves(parts)
+    split = geo.curves
+    assert len(whole) == len(split) == 1
+    for col in ("radius_m", "radius_se_m", "circ_start_m", "circ_end_m", "s_start_m",
+                "s_end_m", "noise_m"):
+        assert split[col].iloc[0] == pytest.approx(whole[col].iloc[0], rel=1e-6, abs=1e-6)
+    # the output lines still carry every input vertex
+    import curvescan
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = curvescan.scan(frame_from_lines(parts), crs=CRS)
+    out_xy = shapely.get_coordinates(res.segments.to_crs(CRS).geometry.values)
+    dense_xy = shapely.get_coordinates(frame_from_lines([dense]).geometry.values)
+    gap = np.min(np.hypot(*(out_xy[None, :, :] - dense_xy[:, None, :]).transpose(2, 0, 1)),
+                 axis=1)
+    assert gap.max() < 1e-6
+
+
+@pytest.mark.parametrize("jitter,noise", [((5.0, 25.0), 0.5), ((20.0, 60.0), 0.05),
+                                          ((1.0, 3.0), 0.3)])
+def test_curve_extents_are_ordered_on_random_alignments(jitter, noise):
+    """start <= circular start <= circular end <= end, no negative transition, and curves
+    on a chain never overlap, on random alignments of every vertex regime (sparse vertices
+    once gave a circular part overlapping its neighbour's and a transition of -30 m)."""
+    from curvescan.synthetic import random_alignment
+    rng = np.random.default_rng(11)
+    lines = []
+    for i in range(60):
+        al = random_alignment(rng, n_curves=6)
+        xy, _ = vertices(al, np.random.default_rng(500 + i), jitter=jitter, noise_m=noise)
+        lines.append(xy + [0.0, 8000.0 * i])
+    c = _curves(lines).curves
+    assert len(c) > 250
+    eps = 1e-9
+    assert (c["s_start_m"] <= c["circ_start_m"] + eps).all()
+    assert (c["circ_start_m"] <= c["circ_end_m"] + eps).all()
+    assert (c["circ_end_m"] <= c["s_end_m"] + eps).all()
+    assert (c[["transition_in_m", "transition_out_m"]] >= -eps).all().all()
+    nxt = c.sort_values(["chain_id", "s_start_m"]).groupby("chain_id")["s_start_m"].shift(-1)
+    assert not (nxt < c.sort_values(["chain_id", "s_start_m"])["s_end_m"] - eps).any()
 
 
 # --- bad input ---------------------------------------------------------------------------

@@ -32,3 +32,19 @@ def test_arc_and_tangent_are_exact_and_continuous():
     s = np.linspace(0, al.length_m, 2001)
     step = np.hypot(*np.diff(al.points(s), axis=0).T)
     np.testing.assert_allclose(step, np.diff(s), rtol=1e-4)
+
+
+def test_chord_points_lie_on_their_segments():
+    from curvescan.synthetic import add_chord_points
+    rng = np.random.default_rng(4)
+    xy = np.cumsum(rng.normal(0.0, 10.0, (200, 2)), axis=0)
+    out, added = add_chord_points(xy, np.random.default_rng(1), 0.3)
+    assert len(out) == len(xy) + len(added)
+    assert 40 <= len(added) <= 80  # 30 % of 199 segments
+    kept = np.setdiff1d(np.arange(len(out)), added)
+    np.testing.assert_array_equal(out[kept], xy)
+    a, p, b = out[added - 1], out[added], out[added + 1]
+    cross = (b - a)[:, 0] * (p - a)[:, 1] - (b - a)[:, 1] * (p - a)[:, 0]
+    assert np.all(np.abs(cross) / np.hypot(*(b - a).T) < 1e-9)
+    t = np.einsum("ij,ij->i", p - a, b - a) / np.einsum("ij,ij->i", b - a, b - a)
+    assert np.all((t >= 0.2 - 1e-12) & (t <= 0.8 + 1e-12))

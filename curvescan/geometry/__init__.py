@@ -25,7 +25,7 @@ from .circlefit import fit_circles
 from .noise import vertex_noise
 from .pieces import piece_table, resolve_overlaps
 from . import _kernels as kn
-from .resample import chord_curvature, make_stations, resample_stations
+from .resample import chord_curvature, make_stations, resample_stations, shape_vertices
 from .segment import find_runs
 from .stations import Stations
 
@@ -52,6 +52,12 @@ PARAMETERS: tuple[Param, ...] = (
           "Least distance from the fitted circle within which a vertex still belongs to the "
           "circular part (raised to 2.5 times the vertex noise or fit RMSE).", unit="m",
           stage="geometry", minimum=0.001, maximum=10.0, advanced=True),
+    Param("chord_vertex_tolerance_m", "float", 0.001,
+          "A vertex within this distance of the segment between its two neighbours, where "
+          "neither neighbour lies so on its own, carries no shape (a point added where a "
+          "feature was split or a side road joins) and is left out of the curve search and "
+          "fits; output lines keep every vertex. 0 leaves out only exactly collinear ones.",
+          unit="m", stage="geometry", minimum=0.0, maximum=1.0, advanced=True),
     Param("min_significance", "float", 3.0,
           "Keep a curve only when its curvature is this many statistical standard errors "
           "from zero (radius / its noise-only standard deviation); rejects noise on "
@@ -166,9 +172,27 @@ def _concat_stations(parts: list) -> Stations:
                     offsets=offsets)
 
 
-def _batch(chains: Any, config: Any) -> GeometryResult:
+def _shape_chains(chains: Any, tol: float) -> Any:
+    """The chains without the vertices that carry no shape (:func:`shape_vertices`)."""
+    keep = shape_vertices(chains.coords, chains.offsets, tol)
+    if keep.all():
+        return chains
+    n_chains = len(chains.offsets) - 1
+    chain_of = np.repeat(np.arange(n_chains), np.diff(chains.offsets))
+    offsets = np.r_[0, np.cumsum(np.bincount(chain_of[keep], minlength=n_chains))]
+    rev = chains.vertex_reversed
+    return type(chains)(
+        coords=chains.coords[keep], offsets=offsets.astype(chains.offsets.dtype),
+        vertex_row=chains.vertex_row[keep], measure=chains.measure[keep], crs=chains.crs,
+        rows=chains.rows, closed=chains.closed,
+        vertex_reversed=None if rev is None else rev[keep])
+
+
+def _batch(all_chains: Any, config: Any) -> GeometryResult:
     """Curves of one batch of chains (the whole method; see :func:`find_curves`)."""
     spacing = config.station_spacing_m
+    # a point on the chord of its neighbours carries no shape; output lines keep it
+    chains = _shape_chains(all_chains, config.chord_vertex_tolerance_m)
     st = resample_stations(chains.coords, chains.measure, chains.offsets, spacing)
     s, gs, chain, st_off, gm, base = (st[k] for k in ("s", "gs", "chain", "st_off", "gm",
                                                         "base"))
@@ -210,7 +234,7 @@ def _batch(chains: Any, config: Any) -> GeometryResult:
                            min_length_m=config.min_curve_length_m,
                            min_deflection_rad=0.5 * np.radians(config.min_deflection_deg))
     curves = _assemble(prof, parts, first, last, half_det * spacing, base, chains, config)
-    segments = piece_table(chains, curves)
+    segments = piece_table(all_chains, curves)
     return GeometryResult(stations=stations, curves=curves, segments=segments)
 
 
@@ -426,8 +450,10 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     run_hi = prof.s[last[piece]] + hw
     chain_prev = np.r_[False, chain[1:] == chain[:-1]]
     chain_next = np.r_[chain[1:] == chain[:-1], False]
-    prev_end = np.where(chain_prev, np.r_[0.0, circ_end[:-1]], 0.0)
-    next_start = np.where(chain_next, np.r_[circ_start[1:], 0.0], lengths)
+    # (where neighbouring circular parts overlap, not past this part's own: the overlap is
+    # settled in ``resolve_overlaps``, and a transition is never negative)
+    prev_end = np.minimum(np.where(chain_prev, np.r_[0.0, circ_end[:-1]], 0.0), circ_start)
+    next_start = np.maximum(np.where(chain_next, np.r_[circ_start[1:], 0.0], lengths), circ_end)
     look_lo = np.maximum(circ_start - 2.0 * np.maximum(circ_start - run_lo, 0.0), prev_end)
     look_hi = np.minimum(circ_end + 2.0 * np.maximum(run_hi - circ_end, 0.0), next_start)
     a = find(prof.gs, np.maximum(look_lo, 0.0) + gbase, side="left")
@@ -452,6 +478,14 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     start[1:] = np.where(same_prev[1:], mid_next, start[1:])
     start = np.clip(np.maximum(start, look_lo), 0.0, lengths)
     end = np.clip(np.minimum(end, look_hi), 0.0, lengths)
+    # neighbouring circular parts never overlap (they meet in the middle of the overlap),
+    # and a curve always holds its circular part: no negative transition
+    over = np.flatnonzero(chain_next[:-1] & (circ_start[1:] < circ_end[:-1]))
+    meet = 0.5 * (circ_start[over + 1] + circ_end[over])
+    circ_end[over] = meet
+    circ_start[over + 1] = meet
+    start = np.minimum(start, circ_start)
+    end = np.maximum(end, circ_end)
     # deflection over the whole curve, from the curvature at the part's scale; the
     # window blurs curvature up to one half window beyond the curve's ends, so the sum
     # reaches that far, but never into the neighbouring curve of the same chain

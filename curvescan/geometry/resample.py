@@ -12,7 +12,41 @@ from . import _kernels as kn
 from .stations import Stations
 
 __all__ = ["global_measure", "interpolate", "resample", "resample_stations", "chord_curvature",
-           "station_heading"]
+           "station_heading", "shape_vertices"]
+
+def shape_vertices(coords: np.ndarray, offsets: np.ndarray, tol: float) -> np.ndarray:
+    """Which vertices carry shape: False for a single vertex lying on the segment between
+    its two neighbours (within ``tol``) while neither neighbour lies so on its own.
+
+    Such a vertex is what a split or a side road joining leaves on a digitised line: a
+    point on the chord between two shape vertices, off a curve by that chord's sagitta
+    (metres on sparse vertices). Left in, it pulls circle fits toward the chord and,
+    offset zero from its neighbours' chord, lowers the noise estimate. Runs of collinear
+    vertices (a tangent digitised point by point) are kept: their zero offsets are true.
+    A vertex that doubles back (outside the segment) is kept; chain ends are kept. The
+    line moves by at most ``tol``.
+    """
+    coords = np.asarray(coords, dtype=float)
+    offsets = np.asarray(offsets, dtype=np.int64)
+    n = len(coords)
+    keep = np.ones(n, dtype=bool)
+    if n < 3:
+        return keep
+    x, y = coords[:, 0], coords[:, 1]
+    ux, uy = x[2:] - x[:-2], y[2:] - y[:-2]
+    px, py = x[1:-1] - x[:-2], y[1:-1] - y[:-2]
+    length = np.hypot(ux, uy)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        along = (px * ux + py * uy) / length
+        off = np.abs(px * uy - py * ux) / length
+    on_chord = np.zeros(n, dtype=bool)
+    on_chord[1:-1] = (length > 0.0) & (off <= tol) & (along >= 0.0) & (along <= length)
+    counts = np.diff(offsets)
+    on_chord[offsets[:-1][counts > 0]] = False
+    on_chord[offsets[1:][counts > 0] - 1] = False
+    alone = on_chord & ~np.r_[False, on_chord[:-1]] & ~np.r_[on_chord[1:], False]
+    keep[alone] = False
+    return keep
 
 
 def global_measure(measure: np.ndarray, offsets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
