@@ -57,6 +57,11 @@ PARAMETERS: tuple[Param, ...] = (
     Param("bridge_field", "field", "bridge",
           "Field flagging bridges or other structures (OSM bridge=*) for the winter score.",
           stage="assess"),
+    Param("rings_in_hazards", "bool", False,
+          "Keep curves on roundabouts and other closed rings (on_ring) in the hazard and "
+          "winter layers; by default they stay in the curves layer only (a roundabout is a "
+          "junction driven at its own speed, not a curve of the open road).",
+          stage="assess"),
     Param("consistency_tangent_m", "float", 200.0,
           "Tangents shorter than this (m) carry the previous curve's comfort speed into the "
           "next curve's approach.", unit="m", stage="assess", minimum=0.0),
@@ -309,10 +314,15 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
         curves["mildest_condition"] = _mildest(curves, names)[1]
     else:
         curves["mildest_condition"] = None
-    curves = curves.join(winter_priority(curves, config))
-    hz = hazards(curves, config)
+    # curves on roundabouts and closed rings stay in the curves layer only, unless asked
+    ring = np.zeros(len(curves), dtype=bool)
+    if "on_ring" in curves and not config.rings_in_hazards:
+        ring = curves["on_ring"].to_numpy(dtype=bool)
+    curves = curves.join(winter_priority(curves, config, last=ring))
+    hz = hazards(curves[~ring], config) if ring.any() else hazards(curves, config)
     cols = [c for c in WINTER_FIELDS if c in curves.columns] + ["geometry"]
-    winter = curves.loc[curves["winter_score"] > 0, cols].sort_values("winter_rank")
+    winter = curves.loc[(curves["winter_score"] > 0).to_numpy() & ~ring, cols] \
+        .sort_values("winter_rank")
     summary = run_summary(curves, hz, names, inputs, config)
     return Assessment(curves=curves, hazards=hz, winter=winter, summary=summary)
 
@@ -335,7 +345,9 @@ def run_summary(curves: pd.DataFrame, hz: pd.DataFrame, names: list[str],
     cols = ["curve_id", "road_name", "src_fids", "radius_m", "posted_kmh", "limit_kmh",
             "mildest_condition", "max_excess_kmh", "governing_mechanism", "band_position"]
     worst_rows = hz.head(worst)[[c for c in cols if c in hz.columns]]
-    top_w = curves.loc[curves["winter_rank"].sort_values().index[:worst]]
+    ranked = curves if config.rings_in_hazards or "on_ring" not in curves else \
+        curves[~curves["on_ring"].to_numpy(dtype=bool)]
+    top_w = ranked.loc[ranked["winter_rank"].sort_values().index[:worst]]
     return {
         "conditions_mildest_first": names,
         "curves_with_posted_speed": int(np.isfinite(posted).sum()),
@@ -352,5 +364,7 @@ def run_summary(curves: pd.DataFrame, hz: pd.DataFrame, names: list[str],
         "winter_traffic_share": float(config.winter_traffic_share),
         "winter_top": top_w[["winter_rank", "curve_id", "road_name", "winter_score"]]
         .to_dict(orient="records"),
+        "ring_curves": int(curves["on_ring"].sum()) if "on_ring" in curves else 0,
+        "ring_curves_in_hazards": bool(config.rings_in_hazards),
         "inputs": inputs,
     }

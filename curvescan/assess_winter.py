@@ -152,7 +152,8 @@ def _clip01(x: np.ndarray) -> np.ndarray:
     return np.clip(np.nan_to_num(np.asarray(x, dtype=float), nan=0.0), 0.0, 1.0)
 
 
-def winter_priority(curves: pd.DataFrame, config: Any) -> pd.DataFrame:
+def winter_priority(curves: pd.DataFrame, config: Any,
+                    last: np.ndarray | None = None) -> pd.DataFrame:
     """Winter parts, score and rank for every curve.
 
     Parameters
@@ -163,6 +164,9 @@ def winter_priority(curves: pd.DataFrame, config: Any) -> pd.DataFrame:
         ``approach_tangent_m``, ``aadt``, ``on_bridge``.
     config : ScanConfig
         The ``winter_*`` parameters.
+    last : ndarray of bool, optional
+        Curves ranked after all others whatever their score (roundabouts and closed rings,
+        left out of the winter layer).
 
     Returns
     -------
@@ -209,7 +213,8 @@ def winter_priority(curves: pd.DataFrame, config: Any) -> pd.DataFrame:
     out["winter_exposure"] = exposure
     out["winter_score"] = score
     ids = curves["curve_id"].to_numpy() if "curve_id" in curves else np.arange(n)
-    order = np.lexsort((ids, -score))
+    after = np.zeros(n, dtype=bool) if last is None else np.asarray(last, dtype=bool)
+    order = np.lexsort((ids, -score, after))
     rank = np.empty(n, dtype=np.int64)
     rank[order] = np.arange(1, n + 1)
     out["winter_rank"] = rank

@@ -127,7 +127,7 @@ class _Given:
 def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Survey:
     """Read partition ``i``, clean its parts, return their ends (first pass)."""
     from .pipeline import _check_fields
-    from .prepare import part_ends
+    from .prepare import join_groups, part_ends
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -141,9 +141,7 @@ def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Surve
         _check_fields(frame, config)
         parts, part_row, ordinal, skipped = _cleaned(frame, config, crs)
         _, _, end_xy = part_ends(parts) if len(part_row) else (None, None, np.zeros((0, 4)))
-        group = None
-        if config.join_field is not None:
-            group = frame[config.join_field].to_numpy(dtype=object)[part_row]
+        group = join_groups(frame, config, part_row)
     return _Survey(len(frame), local_fid, end_xy, part_row, ordinal, group, skipped,
                    [(w.category, str(w.message)) for w in caught])
 
@@ -309,9 +307,12 @@ def _plans(surveys: list[_Survey], config: Any):
     width = int(ordinal.max()) + 1
     keys = grow * width + ordinal
     end_xy = np.concatenate([s.end_xy for s in surveys])
+    # every partition of one layer has the same fields, so all send groups or none
     group = None
-    if config.join_field is not None:
-        group = np.concatenate([s.group for s in surveys])
+    if any(s.group is not None for s in surveys):
+        group = np.concatenate([s.group if s.group is not None
+                                else np.full(len(s.part_row), "road", dtype=object)
+                                for s in surveys])
     part, reverse, chain_of = chain_order(end_xy, group, config.join_tolerance_m,
                                           config.through_junction_deg)
     first = np.r_[True, chain_of[1:] != chain_of[:-1]]

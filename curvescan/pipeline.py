@@ -38,7 +38,7 @@ from .geometry import find_curves
 from .geometry.pieces import substrings
 from .geometry.resample import global_measure, interpolate
 from .io.vector import WkbLayer
-from .prepare import point_scale, prepare
+from .prepare import point_scale, prepare, roundabout_rows
 from .read import load
 from .speeds import parse_speeds
 
@@ -246,6 +246,7 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
                          curves["s_end_m"].to_numpy(), measure)
     del measure  # _layers makes its own, to be able to drop it with the chains' vertices
     speed_report = _attach_attributes(curves, frame, config, curve_rows)
+    _mark_roundabouts(curves, frame, config, curve_rows)
     ter = _timed(timings, "terrain",
                  lambda: terrain.evaluate(curves, geo.stations, config,
                                           None if dem is None else str(dem)))
@@ -340,6 +341,18 @@ def _check_fields(frame: gpd.GeoDataFrame, config: Any) -> None:
         if value is not None and value not in frame.columns and value != p.default:
             flag = p.flag
             raise InputError(f"{flag}: field {value!r} not found; fields: {', '.join(map(str, names))}")
+
+
+def _mark_roundabouts(curves: pd.DataFrame, frame: gpd.GeoDataFrame, config: Any,
+                      curve_rows: tuple[np.ndarray, np.ndarray]) -> None:
+    """Set ``on_ring`` also on curves lying on features marked as roundabouts (in place)."""
+    ring = roundabout_rows(frame, config)
+    if ring is None or not ring.any() or not len(curves):
+        return
+    groups, rows = curve_rows
+    hit = np.zeros(len(curves), dtype=bool)
+    hit[groups[ring[rows]]] = True
+    curves["on_ring"] = curves["on_ring"].to_numpy(dtype=bool) | hit
 
 
 def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, config: Any,

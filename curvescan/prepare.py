@@ -52,11 +52,19 @@ PARAMETERS: tuple[Param, ...] = (
           "straightly (turning at most this angle) into one chain, so a side road joining "
           "mid-curve does not cut the curve in two; 0 joins only where exactly two ends "
           "meet.", unit="deg", stage="prepare", minimum=0.0, maximum=90.0),
+    Param("roundabout_field", "field", "junction",
+          "Field marking roundabouts (OSM junction=roundabout or circular; also yes, true, "
+          "1), used where present: roundabout features join only with each other, and "
+          "their curves are marked on_ring (a junction, not a curve of the open road).",
+          stage="prepare"),
     Param("spike_angle_deg", "float", 150.0,
           "A vertex where the line turns back by more than this angle is a digitising spike "
           "and is removed.", unit="deg", stage="prepare", minimum=90.0, maximum=180.0,
           advanced=True),
 )
+
+#: Values of the roundabout field that mark a roundabout (lower case, trimmed).
+ROUNDABOUT_VALUES = frozenset({"roundabout", "circular", "yes", "true", "1", "y"})
 
 #: Two parts that leave their common end within this angle of each other double back: they
 #: are not joined into one chain (a duplicated or overlapping feature).
@@ -249,18 +257,58 @@ def prepare(frame: gpd.GeoDataFrame, config: Any) -> Chains:
     if skipped:
         warnings.warn(f"{len(skipped)} input features or parts skipped: "
                       f"{_reason_summary(skipped)}", DataQualityWarning, stacklevel=2)
-    group = None
-    if config.join_field is not None:
-        if config.join_field not in frame.columns:
-            raise InputError(f"join field {config.join_field!r} not found; fields: "
-                             f"{', '.join(map(str, frame.columns.drop('geometry')))}")
-        group = frame[config.join_field].to_numpy(dtype=object)[part_row]
+    group = join_groups(frame, config, part_row)
     chains = _join(coords, part_row, group, config.join_tolerance_m,
                    config.through_junction_deg)
     chains.crs = crs
     chains.skipped = skipped
     chains.notes = notes
     return chains
+
+
+def roundabout_rows(frame: gpd.GeoDataFrame, config: Any) -> np.ndarray | None:
+    """Which input rows are roundabouts (``config.roundabout_field``), or None where the
+    layer has no such field.
+
+    A value in :data:`ROUNDABOUT_VALUES` (case and spaces aside) marks a roundabout; any
+    other value or a blank does not (OSM tags ``junction`` with other junction kinds too).
+    A field named other than the default that is missing is an error.
+    """
+    name = config.roundabout_field
+    if name is None:
+        return None
+    if name not in frame.columns:
+        if name != "junction":
+            raise InputError(f"roundabout field {name!r} not found; fields: "
+                             f"{', '.join(map(str, frame.columns.drop('geometry')))}")
+        return None
+    raw = pd.Series(frame[name].to_numpy(dtype=object))
+    text = raw.astype(str).str.strip().str.lower()
+    return (raw.notna() & text.isin(ROUNDABOUT_VALUES)).to_numpy()
+
+
+def join_groups(frame: gpd.GeoDataFrame, config: Any, part_row: np.ndarray
+                ) -> np.ndarray | None:
+    """Per part, the value parts must share to be joined (None: any parts may join).
+
+    With ``join_field``, its value (a blank never joins); with roundabouts marked
+    (:func:`roundabout_rows`), roundabout parts join only each other, whatever their
+    ``join_field`` (a roundabout's pieces rarely carry the roads' names), and other parts
+    only other parts.
+    """
+    group = None
+    if config.join_field is not None:
+        if config.join_field not in frame.columns:
+            raise InputError(f"join field {config.join_field!r} not found; fields: "
+                             f"{', '.join(map(str, frame.columns.drop('geometry')))}")
+        group = frame[config.join_field].to_numpy(dtype=object)[part_row]
+    ring = roundabout_rows(frame, config)
+    if ring is None:
+        return group
+    ring = ring[part_row]
+    road = np.full(len(part_row), "road", dtype=object) if group is None else np.where(
+        pd.notna(group), np.array(["road\x1f" + str(g) for g in group], dtype=object), None)
+    return np.where(ring, "roundabout", road)
 
 
 def _reason_summary(skipped: list[dict]) -> str:

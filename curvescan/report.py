@@ -77,6 +77,10 @@ def summary_lines(result: Any, worst: int = 10) -> list[str]:
                      + _pairs(summary.get("consistency_counts", {})))
     # a streamed result keeps only the top hazards; the run record has the count
     lines.append(f"hazard curves: {run.get('hazards', len(hazards))}")
+    rings = summary.get("ring_curves", 0) if summary else 0
+    if rings and not summary.get("ring_curves_in_hazards"):
+        lines.append(f"curves on roundabouts or closed rings: {rings} (curves layer only, "
+                     "field on_ring; --rings-in-hazards ranks them too)")
     if len(hazards):
         top = hazards.sort_values("severity_rank").head(worst) \
             if "severity_rank" in hazards else hazards.head(worst)

@@ -48,7 +48,16 @@ def _network(seed: int = 3, n_alignments: int = 24) -> gpd.GeoDataFrame:
     lines += [loop[:100], loop[99:], np.vstack([d, d + [-400.0, -300.0]])]
     order = rng.permutation(len(lines))
     speeds = rng.choice(["50", "70", "90", "60 mph"], len(lines))
-    return gpd.GeoDataFrame({"maxspeed": speeds[order]},
+    # a roundabout of four tagged pieces with nearly tangential approaches, in the last
+    # rows: its pieces join only each other (tests/test_roundabouts.py)
+    from .test_roundabouts import roundabout_network
+    rb = roundabout_network(centre=(560000.0, 5560000.0))
+    lines += [np.asarray(g.coords) for g in rb.geometry]
+    order = np.r_[order, np.arange(len(order), len(lines))]
+    speeds = np.r_[speeds, rb["maxspeed"].to_numpy()]
+    junction = np.r_[np.full(len(order) - len(rb), None, dtype=object),
+                     rb["junction"].to_numpy(dtype=object)]
+    return gpd.GeoDataFrame({"maxspeed": speeds, "junction": junction},
                             geometry=[shapely.LineString(lines[i]) for i in order], crs=CRS)
 
 
@@ -104,6 +113,9 @@ def test_network_has_chains_straddling_partitions(network, single):
     # precondition of the equality tests: most chains join features from far-apart rows
     assert single.run["chains"] < len(network) - 20
     assert len(single.curves) > 40
+    # ... and the roundabout is one ring, out of the hazards
+    assert single.curves["on_ring"].sum() >= 1
+    assert not single.hazards["on_ring"].any()
 
 
 def test_local_cluster_gives_the_single_process_curves(network, single, cluster):
