@@ -102,6 +102,25 @@ def test_resample_and_noise_kernels(monkeypatch):
     _equal(*_both(monkeypatch, lambda: noise.vertex_noise(c, off, m, kappa)))
 
 
+def test_points_on_chords_compiled_equals_numpy(monkeypatch):
+    """``shape_vertices``: the compiled on-chord test gives numpy's marks, here on lines
+    with points put on a third of their chords (exactly, and 0.5 mm off)."""
+    from curvescan.synthetic import add_chord_points
+    rng = np.random.default_rng(8)
+    lines, off = [], [0]
+    for k in range(40):
+        xy = np.cumsum(rng.normal(0.0, 12.0, (60, 2)), axis=0) + [5e5, 5e6]
+        xy, added = add_chord_points(xy, rng, 0.3)
+        xy[added[::2]] += 0.0005
+        lines.append(xy)
+        off.append(off[-1] + len(xy))
+    c, o = np.concatenate(lines), np.array(off)
+    for tol in (0.0001, 0.001, 0.01):
+        a, b = _both(monkeypatch, lambda: resample.shape_vertices(c, o, tol))
+        _equal(a, b)
+    assert 200 < (~a).sum() < 800
+
+
 def test_chain_half_windows_and_near_vertices(monkeypatch):
     import curvescan.geometry as geometry
 

@@ -127,6 +127,24 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
         return out
 
     @njit(parallel=True, cache=True)
+    def on_chord_kernel(x, y, tol, out):
+        """``out[i]``: vertex ``i`` lies within ``tol`` of the segment between vertices
+        ``i - 1`` and ``i + 1`` (see ``resample.shape_vertices``; same operations)."""
+        n = x.shape[0]
+        for i in prange(1, n - 1):
+            ux = x[i + 1] - x[i - 1]
+            uy = y[i + 1] - y[i - 1]
+            px = x[i] - x[i - 1]
+            py = y[i] - y[i - 1]
+            length = np.hypot(ux, uy)
+            if length > 0.0:
+                along = (px * ux + py * uy) / length
+                off = abs(px * uy - py * ux) / length
+                out[i] = off <= tol and along >= 0.0 and along <= length
+            else:
+                out[i] = False
+
+    @njit(parallel=True, cache=True)
     def noise_kernel(cx, cy, measure, v_off, kappa, use_kappa):
         """Upper median of each chain's absolute vertex offsets from the neighbour chord
         (sagitta of ``kappa`` removed; 0 where a chain has none; see noise.py)."""

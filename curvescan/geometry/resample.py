@@ -32,15 +32,18 @@ def shape_vertices(coords: np.ndarray, offsets: np.ndarray, tol: float) -> np.nd
     keep = np.ones(n, dtype=bool)
     if n < 3:
         return keep
-    x, y = coords[:, 0], coords[:, 1]
-    ux, uy = x[2:] - x[:-2], y[2:] - y[:-2]
-    px, py = x[1:-1] - x[:-2], y[1:-1] - y[:-2]
-    length = np.hypot(ux, uy)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        along = (px * ux + py * uy) / length
-        off = np.abs(px * uy - py * ux) / length
+    x, y = np.ascontiguousarray(coords[:, 0]), np.ascontiguousarray(coords[:, 1])
     on_chord = np.zeros(n, dtype=bool)
-    on_chord[1:-1] = (length > 0.0) & (off <= tol) & (along >= 0.0) & (along <= length)
+    if kn.compiled():
+        kn.on_chord_kernel(x, y, float(tol), on_chord)
+    else:
+        ux, uy = x[2:] - x[:-2], y[2:] - y[:-2]
+        px, py = x[1:-1] - x[:-2], y[1:-1] - y[:-2]
+        length = np.hypot(ux, uy)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            along = (px * ux + py * uy) / length
+            off = np.abs(px * uy - py * ux) / length
+        on_chord[1:-1] = (length > 0.0) & (off <= tol) & (along >= 0.0) & (along <= length)
     counts = np.diff(offsets)
     on_chord[offsets[:-1][counts > 0]] = False
     on_chord[offsets[1:][counts > 0] - 1] = False
