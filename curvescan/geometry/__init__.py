@@ -482,8 +482,8 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     # and a curve always holds its circular part: no negative transition
     over = np.flatnonzero(chain_next[:-1] & (circ_start[1:] < circ_end[:-1]))
     meet = 0.5 * (circ_start[over + 1] + circ_end[over])
-    circ_end[over] = meet
-    circ_start[over + 1] = meet
+    circ_end[over] = np.maximum(meet, circ_start[over])
+    circ_start[over + 1] = np.minimum(meet, circ_end[over + 1])
     start = np.minimum(start, circ_start)
     end = np.maximum(end, circ_end)
     # deflection over the whole curve, from the curvature at the part's scale; the
