@@ -378,3 +378,23 @@ def test_tangent_end_gain(monkeypatch):
                                                                      cy, r, sigma))
         _equal(a, b)
         assert (a[0][k == 0] == 0).all() and (a[0] <= k).all()
+
+
+def test_shape_vertex_kernel(monkeypatch):
+    """The sequential collinear rule: densified lines (exact and noisy), exact tangents,
+    runs longer than the bound, a point doubling back, repeated points."""
+    import shapely
+
+    lines = [shapely.get_coordinates(shapely.segmentize(shapely.LineString(xy), d))
+             for xy, d in zip(_network(), (2.0, 1.0, 5.0, 3.0, 0.5))]
+    rng = np.random.default_rng(2)
+    straight = np.column_stack([np.arange(0.0, 600.0, 1.0), np.zeros(600)])
+    straight[::7, 1] += rng.normal(0.0, 0.0008, len(straight[::7]))
+    back = np.array([[0.0, 0.0], [10.0, 0.0], [5.0, 0.0], [20.0, 0.0], [20.0, 0.0],
+                     [30.0, 0.0]])
+    lines += [straight, back]
+    xy = np.vstack(lines)
+    off = np.r_[0, np.cumsum([len(v) for v in lines])]
+    got = _both(monkeypatch, lambda: resample.shape_vertex_classes(xy, off, 0.001))
+    _equal(*got)
+    assert got[0][1].sum() >= 3 and (~got[0][0]).sum() > len(xy) // 2

@@ -22,10 +22,11 @@ from .circular import (
     half_level_span,
 )
 from .circlefit import fit_circles
-from .noise import vertex_noise
+from .noise import local_vertex_noise, vertex_noise
 from .pieces import piece_table, resolve_overlaps
 from . import _kernels as kn
-from .resample import chord_curvature, make_stations, resample_stations, shape_vertices
+from .resample import (chord_curvature, make_stations, resample_stations,
+                       shape_vertex_classes)
 from .segment import find_runs
 from .stations import Stations
 
@@ -56,7 +57,9 @@ PARAMETERS: tuple[Param, ...] = (
           "A vertex within this distance of the segment between its two neighbours, where "
           "neither neighbour lies so on its own, carries no shape (a point added where a "
           "feature was split or a side road joins) and is left out of the curve search and "
-          "fits; output lines keep every vertex. 0 leaves out only exactly collinear ones.",
+          "fits; on a line cut into short pieces along its own segments (densified) every "
+          "vertex within this distance of the line through the vertices kept around it. "
+          "Output lines keep every vertex. 0 leaves out only exactly collinear ones.",
           unit="m", stage="geometry", minimum=0.0, maximum=1.0, advanced=True),
     Param("min_significance", "float", 3.0,
           "Keep a curve only when its curvature is this many statistical standard errors "
@@ -172,11 +175,12 @@ def _concat_stations(parts: list) -> Stations:
                     offsets=offsets)
 
 
-def _shape_chains(chains: Any, tol: float) -> Any:
-    """The chains without the vertices that carry no shape (:func:`shape_vertices`)."""
-    keep = shape_vertices(chains.coords, chains.offsets, tol)
+def _shape_chains(chains: Any, tol: float) -> tuple[Any, np.ndarray]:
+    """The chains without the vertices that carry no shape, and which chains are densified
+    (:func:`shape_vertex_classes`)."""
+    keep, densified = shape_vertex_classes(chains.coords, chains.offsets, tol)
     if keep.all():
-        return chains
+        return chains, densified
     n_chains = len(chains.offsets) - 1
     chain_of = np.repeat(np.arange(n_chains), np.diff(chains.offsets))
     offsets = np.r_[0, np.cumsum(np.bincount(chain_of[keep], minlength=n_chains))]
@@ -185,14 +189,14 @@ def _shape_chains(chains: Any, tol: float) -> Any:
         coords=chains.coords[keep], offsets=offsets.astype(chains.offsets.dtype),
         vertex_row=chains.vertex_row[keep], measure=chains.measure[keep], crs=chains.crs,
         rows=chains.rows, closed=chains.closed,
-        vertex_reversed=None if rev is None else rev[keep])
+        vertex_reversed=None if rev is None else rev[keep]), densified
 
 
 def _batch(all_chains: Any, config: Any) -> GeometryResult:
     """Curves of one batch of chains (the whole method; see :func:`find_curves`)."""
     spacing = config.station_spacing_m
     # a point on the chord of its neighbours carries no shape; output lines keep it
-    chains = _shape_chains(all_chains, config.chord_vertex_tolerance_m)
+    chains, densified = _shape_chains(all_chains, config.chord_vertex_tolerance_m)
     st = resample_stations(chains.coords, chains.measure, chains.offsets, spacing)
     s, gs, chain, st_off, gm, base = (st[k] for k in ("s", "gs", "chain", "st_off", "gm",
                                                         "base"))
@@ -204,6 +208,12 @@ def _batch(all_chains: Any, config: Any) -> GeometryResult:
     k_wide = chord_curvature(xy, s, chain, st_off, 3 * half_fine, at=near)
     k_at_vertex = np.interp(gm, gs[near], k_wide)
     sigma = vertex_noise(chains.coords, chains.offsets, chains.measure, k_at_vertex)
+    if densified.any():
+        # densified chains lost the zero offsets of their exact tangents with the collinear
+        # vertices; the wide curvature's sagitta misreads short sharp arcs as noise there
+        d = np.flatnonzero(densified)
+        sub = _subset_vertices(chains, d)
+        sigma[d] = np.minimum(sigma[d], local_vertex_noise(*sub))
     # detection scale: long enough that noise curvature stays well below 1/max_radius
     det_m = np.sqrt(10.0 * sigma * config.max_radius_m)
     half_det = np.maximum(half_fine, np.round(np.minimum(det_m, 150.0) / spacing).astype(np.int64))
@@ -236,6 +246,15 @@ def _batch(all_chains: Any, config: Any) -> GeometryResult:
     curves = _assemble(prof, parts, first, last, half_det * spacing, base, chains, config)
     segments = piece_table(all_chains, curves)
     return GeometryResult(stations=stations, curves=curves, segments=segments)
+
+
+def _subset_vertices(chains: Any, which: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Coordinates, offsets and measures of the chains ``which`` (sorted)."""
+    counts = np.diff(chains.offsets)[which]
+    idx = np.repeat(chains.offsets[which] - np.r_[0, np.cumsum(counts)[:-1]], counts) + \
+        np.arange(counts.sum())
+    return (chains.coords[idx], np.r_[0, np.cumsum(counts)].astype(np.int64),
+            chains.measure[idx])
 
 
 def _near_vertices(gs: np.ndarray, gm: np.ndarray) -> np.ndarray:

@@ -145,6 +145,40 @@ if HAVE_NUMBA:  # pragma: no cover - compiled code is not traced by coverage
                 out[i] = False
 
     @njit(parallel=True, cache=True)
+    def collinear_kernel(cx, cy, v_off, cand, tol, max_run):
+        """Sequential collinear rule of ``resample._sequential_keep`` (same values)."""
+        n = cx.shape[0]
+        keep = np.ones(n, dtype=np.bool_)
+        nc = v_off.shape[0] - 1
+        for c in prange(nc):
+            first = v_off[c]
+            last = v_off[c + 1] - 1
+            k = first
+            for i in range(first + 1, last):
+                if not cand[i] or i - k > max_run:
+                    k = i
+                    continue
+                ax = cx[k]
+                ay = cy[k]
+                ux = cx[i + 1] - ax
+                uy = cy[i + 1] - ay
+                length = np.hypot(ux, uy)
+                ok = length > 0.0
+                j = k + 1
+                while ok and j <= i:
+                    px = cx[j] - ax
+                    py = cy[j] - ay
+                    along = (px * ux + py * uy) / length
+                    off = abs(px * uy - py * ux) / length
+                    ok = off <= tol and along >= 0.0 and along <= length
+                    j += 1
+                if ok:
+                    keep[i] = False
+                else:
+                    k = i
+        return keep
+
+    @njit(parallel=True, cache=True)
     def noise_kernel(cx, cy, measure, v_off, kappa, use_kappa):
         """Upper median of each chain's absolute vertex offsets from the neighbour chord
         (sagitta of ``kappa`` removed; 0 where a chain has none; see noise.py)."""

@@ -9,32 +9,72 @@ from __future__ import annotations
 import numpy as np
 
 from . import _kernels as kn
+from ._ragged import expand
 from .stations import Stations
 
 __all__ = ["global_measure", "interpolate", "resample", "resample_stations", "chord_curvature",
-           "station_heading", "shape_vertices"]
+           "station_heading", "shape_vertices",
+           "shape_vertex_classes"]
 
-def shape_vertices(coords: np.ndarray, offsets: np.ndarray, tol: float) -> np.ndarray:
-    """Which vertices carry shape: False for a single vertex lying on the segment between
-    its two neighbours (within ``tol``) while neither neighbour lies so on its own.
+#: A chain is *densified* when at least this share of the segments between its shape
+#: vertices span two or more collinear vertices that were left out (see
+#: :func:`shape_vertex_classes`).
+DENSIFIED_SHARE = 0.5
 
-    Such a vertex is what a split or a side road joining leaves on a digitised line: a
-    point on the chord between two shape vertices, off a curve by that chord's sagitta
-    (metres on sparse vertices). Left in, it pulls circle fits toward the chord and,
-    offset zero from its neighbours' chord, lowers the noise estimate. Runs of collinear
-    vertices (a tangent digitised point by point) are kept: their zero offsets are true.
-    A vertex that doubles back (outside the segment) is kept; chain ends are kept. The
-    line moves by at most ``tol``.
+#: The sequential collinear rule checks a run of left-out vertices against its chord vertex
+#: by vertex; past this many the next vertex is kept (bounds the work on long runs).
+MAX_COLLINEAR_RUN = 256
+
+
+def shape_vertices(coords: np.ndarray, offsets: np.ndarray, tol: float,
+                   use_compiled: bool = True) -> np.ndarray:
+    """Which vertices carry shape (see :func:`shape_vertex_classes`)."""
+    return shape_vertex_classes(coords, offsets, tol, use_compiled)[0]
+
+
+def shape_vertex_classes(coords: np.ndarray, offsets: np.ndarray, tol: float,
+                         use_compiled: bool = True) -> tuple[np.ndarray, np.ndarray]:
+    """Which vertices carry shape, and which chains are densified.
+
+    A vertex within ``tol`` of the segment between its two neighbours (between its ends;
+    a vertex that doubles back is kept; chain ends are kept) may carry no shape:
+
+    - On most chains only such a vertex *alone* (neither neighbour lies so on its own) is
+      left out. That is what a split or a side road joining leaves on a digitised line: a
+      point on the chord between two shape vertices, off a curve by that chord's sagitta
+      (metres on sparse vertices). Left in, it pulls circle fits toward the chord and,
+      offset zero from its neighbours' chord, lowers the noise estimate. Runs of collinear
+      vertices (a tangent digitised point by point) are kept: their zero offsets are true.
+    - A chain cut into short pieces along its own segments (a densifying step) has such a
+      run on nearly every segment; its zero offsets are no evidence of exactness. The
+      sequential rule finds them: walking the chain, a vertex goes when it and every vertex
+      left out since the last kept one lie within ``tol`` of the segment from that kept
+      vertex to the next vertex, between its ends. Where at least
+      :data:`DENSIFIED_SHARE` of the segments between the vertices it keeps span two or
+      more vertices it left out, the chain is *densified* and every vertex the sequential
+      rule leaves out goes. On a line digitised with exact tangents only the tangents
+      span such runs, the arcs' vertices do not; a junction node or a split leaves a
+      single point, which the rule above takes out anyway (so does cutting segments in
+      two: their points are single too).
+
+    The line moves by at most ``tol``.
+
+    Returns
+    -------
+    keep : ndarray (n,) of bool
+    densified : ndarray (n_chains,) of bool
     """
     coords = np.asarray(coords, dtype=float)
     offsets = np.asarray(offsets, dtype=np.int64)
     n = len(coords)
+    n_chains = len(offsets) - 1
     keep = np.ones(n, dtype=bool)
+    densified = np.zeros(n_chains, dtype=bool)
     if n < 3:
-        return keep
+        return keep, densified
     x, y = np.ascontiguousarray(coords[:, 0]), np.ascontiguousarray(coords[:, 1])
     on_chord = np.zeros(n, dtype=bool)
-    if kn.compiled():
+    if use_compiled and kn.compiled():
         kn.on_chord_kernel(x, y, float(tol), on_chord)
     else:
         ux, uy = x[2:] - x[:-2], y[2:] - y[:-2]
@@ -47,8 +87,61 @@ def shape_vertices(coords: np.ndarray, offsets: np.ndarray, tol: float) -> np.nd
     counts = np.diff(offsets)
     on_chord[offsets[:-1][counts > 0]] = False
     on_chord[offsets[1:][counts > 0] - 1] = False
+    if not on_chord.any():
+        return keep, densified
     alone = on_chord & ~np.r_[False, on_chord[:-1]] & ~np.r_[on_chord[1:], False]
     keep[alone] = False
+    seq = _sequential_keep(x, y, offsets, on_chord, float(tol), use_compiled)
+    # per chain: segments between the vertices the sequential rule keeps, and how many of
+    # them span vertices it left out
+    chain_of = np.repeat(np.arange(n_chains), counts)
+    kept = np.flatnonzero(seq)
+    same = chain_of[kept[1:]] == chain_of[kept[:-1]]
+    spans = same & (np.diff(kept) > 2)
+    segs = np.bincount(chain_of[kept[1:]][same], minlength=n_chains)
+    gaps = np.bincount(chain_of[kept[1:]][spans], minlength=n_chains)
+    densified = (gaps > 0) & (gaps >= DENSIFIED_SHARE * segs)
+    dense_v = densified[chain_of]
+    keep[dense_v] = seq[dense_v]
+    return keep, densified
+
+
+def _sequential_keep(x: np.ndarray, y: np.ndarray, offsets: np.ndarray, cand: np.ndarray,
+                     tol: float, use_compiled: bool = True) -> np.ndarray:
+    """The sequential collinear rule of :func:`shape_vertex_classes` over the candidates
+    ``cand`` (vertices on the segment between their neighbours, never chain ends).
+
+    The numpy form walks all runs of candidates at once, one vertex per run and step.
+    """
+    if use_compiled and kn.compiled():
+        return kn.collinear_kernel(np.ascontiguousarray(x), np.ascontiguousarray(y),
+                                   offsets, cand, tol, MAX_COLLINEAR_RUN)
+    n = len(x)
+    keep = np.ones(n, dtype=bool)
+    # runs of candidates; chain ends are no candidates, so a run stays in its chain
+    edge = np.diff(np.r_[0, cand.astype(np.int8), 0])
+    start = np.flatnonzero(edge == 1)
+    run_len = np.flatnonzero(edge == -1) - start
+    k = start - 1  # the last kept vertex of each run
+    for t in range(int(run_len.max(initial=0))):
+        act = np.flatnonzero(run_len > t)
+        i = start[act] + t
+        far = i - k[act] > MAX_COLLINEAR_RUN
+        ka = k[act]
+        ax, ay = x[ka], y[ka]
+        ux, uy = x[i + 1] - ax, y[i + 1] - ay
+        length = np.hypot(ux, uy)
+        # every vertex since the last kept one, this one included
+        idx, grp = expand(ka + 1, np.where(far, 0, i - ka))
+        px, py = x[idx] - ax[grp], y[idx] - ay[grp]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            along = (px * ux[grp] + py * uy[grp]) / length[grp]
+            off = np.abs(px * uy[grp] - py * ux[grp]) / length[grp]
+        bad = ~((off <= tol) & (along >= 0.0) & (along <= length[grp]))
+        fails = np.bincount(grp[bad], minlength=len(act))
+        ok = ~far & (length > 0.0) & (fails == 0)
+        keep[i[ok]] = False
+        k[act] = np.where(ok, ka, i)
     return keep
 
 
