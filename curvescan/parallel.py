@@ -615,6 +615,7 @@ def _finish(source, dem, config, info: dict, merger: _Merger, layers: dict):
     from . import assess, physics
     from ._version import __version__
     from .cautions import CAUTION
+    from .geometry import chord_tolerance_for
     from .pipeline import ScanResult
 
     info["timings"]["partitions"] = info["partitions"]
@@ -627,7 +628,8 @@ def _finish(source, dem, config, info: dict, merger: _Merger, layers: dict):
         "input_crs": info["input_crs"].to_string() if info["input_crs"] is not None else None,
         "working_crs": info["crs"].to_wkt(),
         "dem": None if dem is None else str(dem),
-        "parameters": config.as_dict(),
+        # defaults that depend on the input as used
+        "parameters": chord_tolerance_for(config, info["input_crs"]).as_dict(),
         "physics": physics.run_record(config),
         "terrain": merger.terrain,
         "input_features": info["n_rows"],

@@ -34,7 +34,7 @@ from .cautions import CAUTION
 from .config import SCAN_PARAMETERS, make_config
 from .errors import DataQualityWarning, InputError
 from .export import CONTRACT_FIELDS, order_columns, output_crs, run_table, write_gpkg
-from .geometry import find_curves
+from .geometry import chord_tolerance_for, find_curves
 from .geometry.pieces import substrings
 from .geometry.resample import global_measure, interpolate
 from .io.vector import WkbLayer
@@ -232,8 +232,9 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     speed_report, terrain_record : dict
         The posted-speed parsing report and the terrain stage's run record.
     """
+    geo_config = chord_tolerance_for(config, frame.crs)
     geo = _timed(timings, "geometry", lambda: find_curves(
-        chains, config, keep_stations=dem is not None,
+        chains, geo_config, keep_stations=dem is not None,
         progress=lambda done: report("geometry", 0.25 + 0.25 * done)))
     report("geometry", 0.5)
     _return_freed_memory()
@@ -464,7 +465,8 @@ def _run_record(source, dem, config, chains, frame, curves, hazards, segments, s
         "input_crs": frame.crs.to_string() if frame.crs is not None else None,
         "working_crs": chains.crs.to_wkt(),
         "dem": None if dem is None else str(dem),
-        "parameters": config.as_dict(),
+        # defaults that depend on the input as used
+        "parameters": chord_tolerance_for(config, frame.crs).as_dict(),
         "physics": physics.run_record(config),
         "input_features": int(len(frame)),
         "chains": int(chains.n_chains),

@@ -70,3 +70,25 @@ def test_kept_utm_input_gives_ground_radius():
     assert k == pytest.approx(1.00037, abs=2e-5)
     assert result.curves["radius_m"].iloc[0] == pytest.approx(300.0 / k, rel=2e-5)
     assert "input CRS" in " ".join(result.run["notes"])
+
+
+def test_chord_tolerance_default_follows_the_input_units():
+    """Points on a chord are left out within 1 mm on projected input, within 6 mm on input
+    in degrees (stored rounded: OpenStreetMap keeps 1e-7 degree); a given value stays. The
+    run record gives the value used."""
+    import warnings
+
+    from curvescan.config import make_config
+    from curvescan.geometry import chord_tolerance_for
+    th = np.radians(np.linspace(0.0, 60.0, 13))
+    xy = np.c_[500000.0 + 300.0 * np.sin(th), 5200000.0 + 300.0 * (1.0 - np.cos(th))]
+    projected = gpd.GeoDataFrame(geometry=[shapely.LineString(xy)], crs="EPSG:32632")
+    degrees = projected.to_crs("EPSG:4326")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        a = curvescan.scan(projected).run["parameters"]["chord_vertex_tolerance_m"]
+        b = curvescan.scan(degrees).run["parameters"]["chord_vertex_tolerance_m"]
+        c = curvescan.scan(degrees, chord_vertex_tolerance_m=0.002)
+    assert (a, b) == (0.001, 0.006)
+    assert c.run["parameters"]["chord_vertex_tolerance_m"] == 0.002
+    assert chord_tolerance_for(make_config(), None).chord_vertex_tolerance_m == 0.001

@@ -11,6 +11,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+import pyproj
 
 from ..declare import Param
 from ._ragged import expand, find, range_quantile, scatter_max, scatter_min
@@ -30,7 +31,7 @@ from .resample import (chord_curvature, make_stations, resample_stations,
 from .segment import find_runs
 from .stations import Stations
 
-__all__ = ["PARAMETERS", "GeometryResult", "find_curves", "Stations"]
+__all__ = ["PARAMETERS", "GeometryResult", "find_curves", "Stations", "chord_tolerance_for"]
 
 PARAMETERS: tuple[Param, ...] = (
     Param("station_spacing_m", "float", 4.0,
@@ -53,13 +54,15 @@ PARAMETERS: tuple[Param, ...] = (
           "Least distance from the fitted circle within which a vertex still belongs to the "
           "circular part (raised to 2.5 times the vertex noise or fit RMSE).", unit="m",
           stage="geometry", minimum=0.001, maximum=10.0, advanced=True),
-    Param("chord_vertex_tolerance_m", "float", 0.001,
+    Param("chord_vertex_tolerance_m", "float", None,
           "A vertex within this distance of the segment between its two neighbours, where "
           "neither neighbour lies so on its own, carries no shape (a point added where a "
           "feature was split or a side road joins) and is left out of the curve search and "
           "fits; on a line cut into short pieces along its own segments (densified) every "
           "vertex within this distance of the line through the vertices kept around it. "
-          "Output lines keep every vertex. 0 leaves out only exactly collinear ones.",
+          "Output lines keep every vertex. Default: 0.006 for input in degrees (stored "
+          "rounded, OpenStreetMap's to 1e-7 degree), else 0.001. 0 leaves out only exactly "
+          "collinear ones.",
           unit="m", stage="geometry", minimum=0.0, maximum=1.0, advanced=True),
     Param("min_significance", "float", 3.0,
           "Keep a curve only when its curvature is this many statistical standard errors "
@@ -152,6 +155,24 @@ def find_curves(chains: Any, config: Any, *, keep_stations: bool = True,
         segments=pd.concat(segments, ignore_index=True))
 
 
+#: ``chord_vertex_tolerance_m`` where not given: points put on a segment by software are
+#: exact to floating point; :data:`CHORD_TOLERANCE_DEGREES_M` where the input is in degrees
+#: (see :func:`chord_tolerance_for`).
+CHORD_TOLERANCE_M = 0.001
+#: Coordinates stored in degrees are usually rounded (OpenStreetMap's to 1e-7 degree, 11 mm
+#: of latitude): a point put on a segment lies up to about 6 mm off it.
+CHORD_TOLERANCE_DEGREES_M = 0.006
+
+
+def chord_tolerance_for(config: Any, input_crs: Any) -> Any:
+    """``config`` with ``chord_vertex_tolerance_m`` set from the input CRS where not given."""
+    if config.chord_vertex_tolerance_m is not None:
+        return config
+    geographic = input_crs is not None and pyproj.CRS.from_user_input(input_crs).is_geographic
+    return config.replace(chord_vertex_tolerance_m=CHORD_TOLERANCE_DEGREES_M if geographic
+                          else CHORD_TOLERANCE_M)
+
+
 #: Chains are processed in batches of about this many stations, so memory stays bounded
 #: on a region of any size (results do not depend on the batching).
 BATCH_STATIONS = 2_000_000
@@ -196,7 +217,8 @@ def _batch(all_chains: Any, config: Any) -> GeometryResult:
     """Curves of one batch of chains (the whole method; see :func:`find_curves`)."""
     spacing = config.station_spacing_m
     # a point on the chord of its neighbours carries no shape; output lines keep it
-    chains, densified = _shape_chains(all_chains, config.chord_vertex_tolerance_m)
+    tol = config.chord_vertex_tolerance_m
+    chains, densified = _shape_chains(all_chains, CHORD_TOLERANCE_M if tol is None else tol)
     st = resample_stations(chains.coords, chains.measure, chains.offsets, spacing)
     s, gs, chain, st_off, gm, base = (st[k] for k in ("s", "gs", "chain", "st_off", "gm",
                                                         "base"))
