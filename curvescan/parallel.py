@@ -98,7 +98,8 @@ def _load_partition(src: Any, i: int, payload: Any, config: Any,
         frame.insert(0, "src_fid", pd.array(np.arange(len(frame)) + offset, dtype="int64"))
     if len(frame) == 0:
         return frame
-    return load(frame, config)
+    # the source applied ``where`` already (and refuses it where it cannot)
+    return load(frame, config if config.where is None else config.replace(where=None))
 
 
 def _cleaned(frame: Any, config: Any, crs: Any):
@@ -364,7 +365,7 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
     client, cluster = _client(config)
     try:
         src = open_partitions(source, layer=config.layer, partition_features=size,
-                              client=client)
+                              client=client, where=config.where)
         crs, note = _working_crs(src, config, client)
         light = src.light()
         futures = [client.submit(survey_task, light, i, src.payload(i), config, crs, pure=False)

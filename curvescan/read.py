@@ -22,6 +22,11 @@ __all__ = ["PARAMETERS", "load", "parse_crs"]
 PARAMETERS: tuple[Param, ...] = (
     Param("layer", "str", None, "Layer to read from a multi-layer source (GeoPackage, GPX).",
           stage="read"),
+    Param("where", "str", None,
+          "Attribute filter on the input layer, an SQL WHERE clause in GDAL's OGR SQL, e.g. "
+          "\"highway IN ('primary', 'secondary')\"; features it leaves out are not scanned. "
+          "For files read through GDAL (GeoPackage, Shapefile, GeoJSON, FlatGeobuf, ...), not "
+          "GeoParquet or a GeoDataFrame (filter those before the scan).", stage="read"),
     Param("assume_crs", "crs", None,
           "CRS to assume when the input has none, e.g. EPSG:4326; never overrides a stored CRS.",
           stage="read"),
@@ -55,6 +60,9 @@ def load(source: str | os.PathLike | gpd.GeoDataFrame, config: Any) -> gpd.GeoDa
         The layer has no features or no geometry column.
     """
     if isinstance(source, gpd.GeoDataFrame):
+        if config.where is not None:
+            raise InputError("--where filters files read through GDAL; filter a GeoDataFrame "
+                             "before the scan (e.g. frame.query(...))")
         frame = source.copy()
         if "src_fid" not in frame.columns:
             index = frame.index
@@ -65,11 +73,13 @@ def load(source: str | os.PathLike | gpd.GeoDataFrame, config: Any) -> gpd.GeoDa
     elif isinstance(source, (str, os.PathLike)):
         from .io.vector import read_layer
 
-        frame = read_layer(source, layer=config.layer)
+        frame = read_layer(source, layer=config.layer, where=config.where)
         label = str(source)
     else:
         raise InputError(f"input must be a path or a GeoDataFrame, not {type(source).__name__}")
     if len(frame) == 0:
+        if config.where is not None:
+            raise InputError(f"--where {config.where!r} leaves no feature of {label}")
         raise InputError(f"{label} has no features")
     if frame.crs is None:
         if config.assume_crs is None:

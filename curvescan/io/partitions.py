@@ -74,6 +74,7 @@ class PartitionSource:
     bounds: np.ndarray | None
     n: int
     layer: str | None = None
+    where: str | None = None  # OGR SQL filter of an ``ogr`` source
     ranges: list[tuple[int, int]] = field(default_factory=list)
     parts: list[Any] = field(default_factory=list)  # dask delayed objects or frames
     columns: list[str] = field(default_factory=list)
@@ -106,7 +107,7 @@ class PartitionSource:
             try:
                 frame = pyogrio.read_dataframe(self.path, layer=self.layer, use_arrow=True,
                                                fid_as_index=True, skip_features=skip,
-                                               max_features=count)
+                                               max_features=count, where=self.where)
             except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError,
                     OSError) as exc:
                 raise DataSourceError(_first_line(f"cannot read {self.path}: {exc}")) from None
@@ -117,12 +118,16 @@ class PartitionSource:
 
 
 def open_partitions(source: Any, *, layer: str | None, partition_features: int,
-                    client: Any = None) -> PartitionSource:
+                    client: Any = None, where: str | None = None) -> PartitionSource:
     """Describe the partitions of ``source`` (path or GeoDataFrame) without reading them.
 
     ``client`` (a dask distributed client) is used to scatter the slices of an in-memory
-    frame to the workers.
+    frame to the workers. ``where`` (OGR SQL) filters a file read through GDAL; the
+    partitions are ranges of the features it keeps.
     """
+    if where is not None and (isinstance(source, gpd.GeoDataFrame) or is_parquet(str(source))):
+        raise InputError("--where filters files read through GDAL, not GeoParquet or a "
+                         "GeoDataFrame; filter those before the scan")
     if isinstance(source, gpd.GeoDataFrame):
         if "src_fid" not in source.columns:  # the ids curvescan.read.load gives a frame
             index = source.index
@@ -148,13 +153,27 @@ def open_partitions(source: Any, *, layer: str | None, partition_features: int,
     except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError, OSError) as exc:
         raise DataSourceError(_first_line(f"cannot read {path}: {exc}")) from None
     total = int(info["features"])
+    if where is not None and total:
+        # the features the filter keeps, and their extent (the working CRS is chosen from
+        # it, as a single-process scan does from the filtered frame)
+        from .vector import check_where
+        try:
+            _, env = pyogrio.read_bounds(path, layer=chosen, where=where)
+        except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError, OSError):
+            check_where(path, chosen, where)
+            raise
+        total = env.shape[1]
+        if total == 0:
+            raise InputError(f"--where {where!r} leaves no feature of {path}")
+        info["total_bounds"] = (np.nanmin(env[0]), np.nanmin(env[1]), np.nanmax(env[2]),
+                                np.nanmax(env[3]))
     if total == 0:
         raise InputError(f"{path} has no features")
     ranges = [(a, min(partition_features, total - a)) for a in range(0, total, partition_features)]
     crs = info.get("crs")
     bounds = np.asarray(info["total_bounds"], dtype=float) if "total_bounds" in info else None
     return PartitionSource("ogr", path, gpd.GeoSeries([], crs=crs).crs if crs else None,
-                           bounds, len(ranges), layer=chosen, ranges=ranges,
+                           bounds, len(ranges), layer=chosen, where=where, ranges=ranges,
                            columns=list(info["fields"]))
 
 

@@ -75,7 +75,8 @@ def _choose_layer(path: str, layer: str | None) -> str | None:
     return lines[0]
 
 
-def read_layer(path: str | os.PathLike, /, layer: str | None = None) -> gpd.GeoDataFrame:
+def read_layer(path: str | os.PathLike, /, layer: str | None = None,
+               where: str | None = None) -> gpd.GeoDataFrame:
     """Read one vector layer into a GeoDataFrame with a ``src_fid`` column.
 
     Parameters
@@ -85,6 +86,8 @@ def read_layer(path: str | os.PathLike, /, layer: str | None = None) -> gpd.GeoD
         FlatGeobuf, GPX (tracks, else routes).
     layer : str, optional
         Layer name; by default the only layer, or the only line layer.
+    where : str, optional
+        OGR SQL WHERE clause; not for GeoParquet.
 
     Returns
     -------
@@ -105,17 +108,32 @@ def read_layer(path: str | os.PathLike, /, layer: str | None = None) -> gpd.GeoD
     if path.lower().endswith((".parquet", ".geoparquet")) or (
         os.path.isdir(path) and any(p.suffix == ".parquet" for p in Path(path).glob("*.parquet"))
     ):
+        if where is not None:
+            raise InputError("--where filters files read through GDAL, not GeoParquet; "
+                             "filter the GeoParquet before the scan")
         return _read_parquet(path)
     chosen = _choose_layer(path, layer)
     try:
-        frame = pyogrio.read_dataframe(path, layer=chosen, use_arrow=True, fid_as_index=True)
+        frame = pyogrio.read_dataframe(path, layer=chosen, use_arrow=True, fid_as_index=True,
+                                       where=where)
     except (_PyogrioSourceError, DataLayerError, OSError) as exc:
+        if where is not None:
+            check_where(path, chosen, where)
         raise DataSourceError(_first_line(f"cannot read {path}: {exc}")) from None
     frame.index.name = None
     if frame.crs is not None and frame.crs.name in _UNDEFINED_SRS:
         frame = frame.set_crs(None, allow_override=True)  # GeoPackage srs_id 0 / -1
     frame.insert(0, "src_fid", frame.index.to_numpy(dtype="int64"))
     return frame.reset_index(drop=True)
+
+
+def check_where(path: str, layer: Any, where: str) -> None:
+    """Raise a one-line InputError where ``where`` is not a filter the layer accepts."""
+    try:
+        pyogrio.read_bounds(path, layer=layer, where=where, max_features=1)
+    except (_PyogrioSourceError, DataLayerError, OSError, ValueError) as exc:
+        raise InputError(_first_line(f"--where {where!r} is not a filter {path} accepts: "
+                                     f"{exc}")) from None
 
 
 def _read_parquet(path: str) -> gpd.GeoDataFrame:
