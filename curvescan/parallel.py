@@ -213,8 +213,8 @@ def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, 
         chains.crs, chains.notes = crs, [note]
         frame = frame.drop(columns="_global_row")
         timings["prepare"] = round(time.perf_counter() - t, 4)
-        layers, speed, terrain_record = scan_chains(frame, chains, config, dem,
-                                                    lambda *_: None, timings)
+        layers, speed, terrain_record, vertex_record = scan_chains(
+            frame, chains, config, dem, lambda *_: None, timings)
         curves, segments, hazards, extra, summary = layers
         named = {"curves": curves, "segments": segments, "hazards": hazards, **extra}
         del layers, curves, segments, hazards, extra
@@ -226,6 +226,7 @@ def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, 
                 named[name] = ArrowLayer.from_frame(named[name])
             timings["to_arrow"] = round(time.perf_counter() - t, 4)
     return {"layers": (named, summary), "speed": speed, "terrain": terrain_record,
+            "vertices": vertex_record,
             "chains": chains.n_chains, "timings": timings,
             "messages": [(w.category, str(w.message)) for w in caught]}
 
@@ -469,6 +470,7 @@ class _Merger:
         self.counts: dict[str, int] = {}
         self.speed: dict[str, Any] = {}
         self.terrain: dict[str, Any] = {}
+        self.vertices: dict[str, Any] = {}
         self.assessment: dict[str, Any] = {}
 
     def __call__(self, index: int, out: dict) -> None:
@@ -486,6 +488,7 @@ class _Merger:
         _merge_report(self.speed, out["speed"])
         _merge_report(self.assessment, summary)
         self.terrain = out["terrain"] or self.terrain
+        _merge_report(self.vertices, out["vertices"])
 
     def _layer(self, name: str, layer: Any, shift: dict[str, int]) -> None:
         cols = {c: layer[c] + by for c, by in shift.items()}
@@ -633,6 +636,7 @@ def _finish(source, dem, config, info: dict, merger: _Merger, layers: dict):
         "parameters": chord_tolerance_for(config, info["input_crs"]).as_dict(),
         "physics": physics.run_record(config),
         "terrain": merger.terrain,
+        "vertices": merger.vertices,
         "input_features": info["n_rows"],
         "chains": info["chains"],
         "curves": merger.counts.get("curves", 0),

@@ -196,8 +196,8 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
         frame = _attributes_only(frame)  # free the input geometries: chains hold them now
         _return_freed_memory()
         report("prepare", 0.25)
-        layers, speed_report, terrain_record = scan_chains(frame, chains, config, dem, report,
-                                                           timings, wkb=True)
+        layers, speed_report, terrain_record, vertex_record = scan_chains(
+            frame, chains, config, dem, report, timings, wkb=True)
     messages = []
     for w in caught:
         messages.append(f"{w.category.__name__}: {w.message}")
@@ -207,6 +207,7 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
     run = _run_record(source, dem, config, chains, frame, curves_l.table, hazards_l.table,
                       segments_l.table, speed_report, messages, timings)
     run["terrain"] = terrain_record
+    run["vertices"] = vertex_record
     run["assessment"] = assess_summary
     return ScanResult(curves=curves_l, segments=segments_l, hazards=hazards_l, run=run,
                       extra=extra_l, descriptions=dict(assess.DESCRIPTIONS))
@@ -214,7 +215,7 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
 
 def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
                 report: Progress, timings: dict[str, float], *,
-                wkb: bool = False) -> tuple[tuple, dict, dict]:
+                wkb: bool = False) -> tuple[tuple, dict, dict, dict]:
     """Run the stages after prepare (geometry, terrain, physics, assess) on prepared chains.
 
     Used by :func:`scan` and, once per partition, by :mod:`curvescan.parallel`.
@@ -229,8 +230,10 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
         are :class:`~curvescan.io.vector.WkbLayer` (geometries as WKB, no GEOS objects:
         less memory and a faster write), and the vertex arrays of ``chains`` are released
         once the layers no longer need them (:meth:`Chains.release_vertices`).
-    speed_report, terrain_record : dict
-        The posted-speed parsing report and the terrain stage's run record.
+    speed_report, terrain_record, vertex_record : dict
+        The posted-speed parsing report, the terrain stage's run record, and the geometry
+        stage's vertex counts (input vertices, those left out as carrying no shape, chains
+        found densified).
     """
     geo_config = chord_tolerance_for(config, frame.crs)
     geo = _timed(timings, "geometry", lambda: find_curves(
@@ -252,6 +255,7 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
                  lambda: terrain.evaluate(curves, geo.stations, config,
                                           None if dem is None else str(dem)))
     terrain_record = terrain.run_record(ter)
+    vertex_record = dict(geo.vertices)
     curves = curves.join(ter.drop(columns=[c for c in ter.columns if c in curves.columns]))
     report("terrain", 0.65)
     phys = _timed(timings, "physics", lambda: physics.evaluate(curves, config))
@@ -268,7 +272,7 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
         layers = (c.to_geodataframe(), sg.to_geodataframe(), hz.to_geodataframe(),
                   {k: v.to_geodataframe() for k, v in extra.items()}, summary)
     report("assess", 0.95)
-    return layers, speed_report, terrain_record
+    return layers, speed_report, terrain_record, vertex_record
 
 
 #: Curve fields that are ground lengths: divided by the working CRS's point scale factor.

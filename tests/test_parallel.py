@@ -125,6 +125,7 @@ def test_local_cluster_gives_the_single_process_curves(network, single, cluster)
                       scheduler=cluster.scheduler_address)
     assert parted.run["timings_s"]["partitions"] >= 6
     assert parted.run["chains"] == single.run["chains"]
+    assert parted.run["vertices"] == single.run["vertices"]
     assert_same_layers(single, parted)
 
 

@@ -79,6 +79,8 @@ class GeometryResult:
     stations: Stations
     curves: pd.DataFrame
     segments: pd.DataFrame
+    #: input vertices, those left out as carrying no shape, and chains found densified
+    vertices: dict = None  # type: ignore[assignment]
 
 
 def _chain_half_windows(chains: Any, spacing: float, smoothing: float) -> np.ndarray:
@@ -130,6 +132,7 @@ def find_curves(chains: Any, config: Any, *, keep_stations: bool = True,
     firsts = np.flatnonzero(np.r_[True, batch[1:] != batch[:-1]])
     bounds = np.r_[firsts, chains.n_chains]
     curves, segments, stations = [], [], []
+    counts = {"input": 0, "left_out_on_chords": 0, "densified_chains": 0}
     n_curves = n_stations = 0
     for c0, c1 in zip(bounds[:-1], bounds[1:]):
         part = _batch(_subset(chains, int(c0), int(c1)), config)
@@ -139,6 +142,8 @@ def find_curves(chains: Any, config: Any, *, keep_stations: bool = True,
         cur["curve_id"] += n_curves
         seg["curve_id"] = np.where(seg["curve_id"] > 0, seg["curve_id"] + n_curves, 0)
         n_curves += len(cur)
+        for key in counts:
+            counts[key] += part.vertices[key]
         curves.append(cur)
         segments.append(seg)
         if keep_stations:
@@ -152,7 +157,7 @@ def find_curves(chains: Any, config: Any, *, keep_stations: bool = True,
     return GeometryResult(
         stations=_concat_stations(stations) if keep_stations else None,
         curves=pd.concat(curves, ignore_index=True),
-        segments=pd.concat(segments, ignore_index=True))
+        segments=pd.concat(segments, ignore_index=True), vertices=counts)
 
 
 #: ``chord_vertex_tolerance_m`` where not given: points put on a segment by software are
@@ -267,7 +272,11 @@ def _batch(all_chains: Any, config: Any) -> GeometryResult:
                            min_deflection_rad=0.5 * np.radians(config.min_deflection_deg))
     curves = _assemble(prof, parts, first, last, half_det * spacing, base, chains, config)
     segments = piece_table(all_chains, curves)
-    return GeometryResult(stations=stations, curves=curves, segments=segments)
+    counts = {"input": int(len(all_chains.coords)),
+              "left_out_on_chords": int(len(all_chains.coords) - len(chains.coords)),
+              "densified_chains": int(np.count_nonzero(densified))}
+    return GeometryResult(stations=stations, curves=curves, segments=segments,
+                          vertices=counts)
 
 
 def _subset_vertices(chains: Any, which: np.ndarray) -> tuple[np.ndarray, ...]:
