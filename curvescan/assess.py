@@ -323,7 +323,7 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
     cols = [c for c in WINTER_FIELDS if c in curves.columns] + ["geometry"]
     winter = curves.loc[(curves["winter_score"] > 0).to_numpy() & ~ring, cols] \
         .sort_values("winter_rank")
-    summary = run_summary(curves, hz, names, inputs, config)
+    summary = run_summary(curves, hz, names, inputs, config, left_out=ring)
     return Assessment(curves=curves, hazards=hz, winter=winter, summary=summary)
 
 
@@ -333,8 +333,11 @@ def _counts(values: Any) -> dict[str, int]:
 
 
 def run_summary(curves: pd.DataFrame, hz: pd.DataFrame, names: list[str],
-                inputs: dict[str, Any], config: Any, worst: int = 10) -> dict[str, Any]:
-    """Build the assessment part of the run record (JSON-serialisable)."""
+                inputs: dict[str, Any], config: Any, worst: int = 10,
+                left_out: np.ndarray | None = None) -> dict[str, Any]:
+    """Build the assessment part of the run record (JSON-serialisable).
+
+    ``left_out`` marks the curves kept out of the hazard and winter layers (rings)."""
     posted = curves["posted_kmh"].to_numpy(dtype=float)
     exceeded = {c: int(np.sum(posted > curves[f"v_{c}_limit_kmh"].to_numpy(float)))
                 for c in names}
@@ -345,8 +348,7 @@ def run_summary(curves: pd.DataFrame, hz: pd.DataFrame, names: list[str],
     cols = ["curve_id", "road_name", "src_fids", "radius_m", "posted_kmh", "limit_kmh",
             "mildest_condition", "max_excess_kmh", "governing_mechanism", "band_position"]
     worst_rows = hz.head(worst)[[c for c in cols if c in hz.columns]]
-    ranked = curves if config.rings_in_hazards or "on_ring" not in curves else \
-        curves[~curves["on_ring"].to_numpy(dtype=bool)]
+    ranked = curves if left_out is None or not left_out.any() else curves[~left_out]
     top_w = ranked.loc[ranked["winter_rank"].sort_values().index[:worst]]
     return {
         "conditions_mildest_first": names,

@@ -63,6 +63,9 @@ PARAMETERS: tuple[Param, ...] = (
           advanced=True),
 )
 
+#: The declared default roundabout field (OSM's tag), used only where a layer has it.
+_ROUNDABOUT_DEFAULT = next(p.default for p in PARAMETERS if p.name == "roundabout_field")
+
 #: Values of the roundabout field that mark a roundabout (lower case, trimmed).
 ROUNDABOUT_VALUES = frozenset({"roundabout", "circular", "yes", "true", "1", "y"})
 
@@ -278,7 +281,7 @@ def roundabout_rows(frame: gpd.GeoDataFrame, config: Any) -> np.ndarray | None:
     if name is None:
         return None
     if name not in frame.columns:
-        if name != "junction":
+        if name != _ROUNDABOUT_DEFAULT:
             raise InputError(f"roundabout field {name!r} not found; fields: "
                              f"{', '.join(map(str, frame.columns.drop('geometry')))}")
         return None

@@ -61,8 +61,9 @@ def load(source: str | os.PathLike | gpd.GeoDataFrame, config: Any) -> gpd.GeoDa
     """
     if isinstance(source, gpd.GeoDataFrame):
         if config.where is not None:
-            raise InputError("--where filters files read through GDAL; filter a GeoDataFrame "
-                             "before the scan (e.g. frame.query(...))")
+            from .io.vector import WHERE_NOT_HERE
+
+            raise InputError(WHERE_NOT_HERE)
         frame = source.copy()
         if "src_fid" not in frame.columns:
             index = frame.index
@@ -79,7 +80,9 @@ def load(source: str | os.PathLike | gpd.GeoDataFrame, config: Any) -> gpd.GeoDa
         raise InputError(f"input must be a path or a GeoDataFrame, not {type(source).__name__}")
     if len(frame) == 0:
         if config.where is not None:
-            raise InputError(f"--where {config.where!r} leaves no feature of {label}")
+            from .io.vector import no_feature_left
+
+            raise no_feature_left(config.where, label)
         raise InputError(f"{label} has no features")
     if frame.crs is None:
         if config.assume_crs is None:

@@ -126,6 +126,7 @@ def find_curves(chains: Any, config: Any, *, keep_stations: bool = True,
         ``curves`` has one row per curve (see docs/output.md); ``segments`` one row per
         tangent, transition or circular piece of every chain.
     """
+    config = chord_tolerance_for(config, None)  # a caller that gives no input CRS
     spacing = config.station_spacing_m
     est = np.ceil(chains.lengths / spacing).astype(np.int64) + 2
     batch = (np.cumsum(est) - est) // BATCH_STATIONS
@@ -186,12 +187,19 @@ BATCH_STATIONS = 2_000_000
 def _subset(chains: Any, c0: int, c1: int) -> Any:
     """The chains ``c0 .. c1-1`` as a :class:`curvescan.prepare.Chains` of their own."""
     v0, v1 = int(chains.offsets[c0]), int(chains.offsets[c1])
+    return _with_vertices(chains, slice(v0, v1), chains.offsets[c0:c1 + 1] - v0,
+                          chains.rows[c0:c1], chains.closed[c0:c1])
+
+
+def _with_vertices(chains: Any, take: Any, offsets: np.ndarray, rows: Any,
+                   closed: np.ndarray) -> Any:
+    """A :class:`curvescan.prepare.Chains` of the vertices ``take`` (slice, mask or
+    indices) of ``chains``, with the given chain offsets, input rows and ring flags."""
     rev = chains.vertex_reversed
     return type(chains)(
-        coords=chains.coords[v0:v1], offsets=chains.offsets[c0:c1 + 1] - v0,
-        vertex_row=chains.vertex_row[v0:v1], measure=chains.measure[v0:v1], crs=chains.crs,
-        rows=chains.rows[c0:c1], closed=chains.closed[c0:c1],
-        vertex_reversed=None if rev is None else rev[v0:v1])
+        coords=chains.coords[take], offsets=offsets, vertex_row=chains.vertex_row[take],
+        measure=chains.measure[take], crs=chains.crs, rows=rows, closed=closed,
+        vertex_reversed=None if rev is None else rev[take])
 
 
 def _concat_stations(parts: list) -> Stations:
@@ -210,20 +218,15 @@ def _shape_chains(chains: Any, tol: float) -> tuple[Any, np.ndarray]:
     n_chains = len(chains.offsets) - 1
     chain_of = np.repeat(np.arange(n_chains), np.diff(chains.offsets))
     offsets = np.r_[0, np.cumsum(np.bincount(chain_of[keep], minlength=n_chains))]
-    rev = chains.vertex_reversed
-    return type(chains)(
-        coords=chains.coords[keep], offsets=offsets.astype(chains.offsets.dtype),
-        vertex_row=chains.vertex_row[keep], measure=chains.measure[keep], crs=chains.crs,
-        rows=chains.rows, closed=chains.closed,
-        vertex_reversed=None if rev is None else rev[keep]), densified
+    return _with_vertices(chains, keep, offsets.astype(chains.offsets.dtype), chains.rows,
+                          chains.closed), densified
 
 
 def _batch(all_chains: Any, config: Any) -> GeometryResult:
     """Curves of one batch of chains (the whole method; see :func:`find_curves`)."""
     spacing = config.station_spacing_m
     # a point on the chord of its neighbours carries no shape; output lines keep it
-    tol = config.chord_vertex_tolerance_m
-    chains, densified = _shape_chains(all_chains, CHORD_TOLERANCE_M if tol is None else tol)
+    chains, densified = _shape_chains(all_chains, config.chord_vertex_tolerance_m)
     st = resample_stations(chains.coords, chains.measure, chains.offsets, spacing)
     s, gs, chain, st_off, gm, base = (st[k] for k in ("s", "gs", "chain", "st_off", "gm",
                                                         "base"))
@@ -282,8 +285,7 @@ def _batch(all_chains: Any, config: Any) -> GeometryResult:
 def _subset_vertices(chains: Any, which: np.ndarray) -> tuple[np.ndarray, ...]:
     """Coordinates, offsets and measures of the chains ``which`` (sorted)."""
     counts = np.diff(chains.offsets)[which]
-    idx = np.repeat(chains.offsets[which] - np.r_[0, np.cumsum(counts)[:-1]], counts) + \
-        np.arange(counts.sum())
+    idx, _ = expand(chains.offsets[which], counts)
     return (chains.coords[idx], np.r_[0, np.cumsum(counts)].astype(np.int64),
             chains.measure[idx])
 

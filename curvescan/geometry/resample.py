@@ -77,13 +77,8 @@ def shape_vertex_classes(coords: np.ndarray, offsets: np.ndarray, tol: float,
     if use_compiled and kn.compiled():
         kn.on_chord_kernel(x, y, float(tol), on_chord)
     else:
-        ux, uy = x[2:] - x[:-2], y[2:] - y[:-2]
-        px, py = x[1:-1] - x[:-2], y[1:-1] - y[:-2]
-        length = np.hypot(ux, uy)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            along = (px * ux + py * uy) / length
-            off = np.abs(px * uy - py * ux) / length
-        on_chord[1:-1] = (length > 0.0) & (off <= tol) & (along >= 0.0) & (along <= length)
+        on_chord[1:-1] = _on_segment(x[1:-1] - x[:-2], y[1:-1] - y[:-2], x[2:] - x[:-2],
+                                     y[2:] - y[:-2], tol)
     counts = np.diff(offsets)
     on_chord[offsets[:-1][counts > 0]] = False
     on_chord[offsets[1:][counts > 0] - 1] = False
@@ -104,6 +99,17 @@ def shape_vertex_classes(coords: np.ndarray, offsets: np.ndarray, tol: float,
     dense_v = densified[chain_of]
     keep[dense_v] = seq[dense_v]
     return keep, densified
+
+
+def _on_segment(px: np.ndarray, py: np.ndarray, ux: np.ndarray, uy: np.ndarray,
+                tol: float) -> np.ndarray:
+    """Whether points ``p`` (relative to a segment's start) lie within ``tol`` of the
+    segment ``u`` and between its ends (the operations of the compiled kernels)."""
+    length = np.hypot(ux, uy)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        along = (px * ux + py * uy) / length
+        off = np.abs(px * uy - py * ux) / length
+    return (length > 0.0) & (off <= tol) & (along >= 0.0) & (along <= length)
 
 
 def _sequential_keep(x: np.ndarray, y: np.ndarray, offsets: np.ndarray, cand: np.ndarray,
@@ -130,16 +136,11 @@ def _sequential_keep(x: np.ndarray, y: np.ndarray, offsets: np.ndarray, cand: np
         ka = k[act]
         ax, ay = x[ka], y[ka]
         ux, uy = x[i + 1] - ax, y[i + 1] - ay
-        length = np.hypot(ux, uy)
         # every vertex since the last kept one, this one included
         idx, grp = expand(ka + 1, np.where(far, 0, i - ka))
-        px, py = x[idx] - ax[grp], y[idx] - ay[grp]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            along = (px * ux[grp] + py * uy[grp]) / length[grp]
-            off = np.abs(px * uy[grp] - py * ux[grp]) / length[grp]
-        bad = ~((off <= tol) & (along >= 0.0) & (along <= length[grp]))
+        bad = ~_on_segment(x[idx] - ax[grp], y[idx] - ay[grp], ux[grp], uy[grp], tol)
         fails = np.bincount(grp[bad], minlength=len(act))
-        ok = ~far & (length > 0.0) & (fails == 0)
+        ok = ~far & (fails == 0)  # a zero-length segment fails every point
         keep[i[ok]] = False
         k[act] = np.where(ok, ka, i)
     return keep

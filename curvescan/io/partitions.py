@@ -38,7 +38,8 @@ import shapely
 
 from ..errors import DataSourceError, InputError
 from .rtree import IndexBuilder
-from .vector import NO_INDEX, _choose_layer, _first_line, check_output_path
+from .vector import (NO_INDEX, WHERE_NOT_HERE, _choose_layer, _first_line, check_output_path,
+                     check_where, no_feature_left)
 
 __all__ = ["PartitionSource", "open_partitions", "is_parquet", "GpkgAppender", "ArrowLayer",
            "ArrowSpill"]
@@ -126,8 +127,7 @@ def open_partitions(source: Any, *, layer: str | None, partition_features: int,
     partitions are ranges of the features it keeps.
     """
     if where is not None and (isinstance(source, gpd.GeoDataFrame) or is_parquet(str(source))):
-        raise InputError("--where filters files read through GDAL, not GeoParquet or a "
-                         "GeoDataFrame; filter those before the scan")
+        raise InputError(WHERE_NOT_HERE)
     if isinstance(source, gpd.GeoDataFrame):
         if "src_fid" not in source.columns:  # the ids curvescan.read.load gives a frame
             index = source.index
@@ -156,7 +156,6 @@ def open_partitions(source: Any, *, layer: str | None, partition_features: int,
     if where is not None and total:
         # the features the filter keeps, and their extent (the working CRS is chosen from
         # it, as a single-process scan does from the filtered frame)
-        from .vector import check_where
         try:
             _, env = pyogrio.read_bounds(path, layer=chosen, where=where)
         except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError, OSError):
@@ -164,7 +163,7 @@ def open_partitions(source: Any, *, layer: str | None, partition_features: int,
             raise
         total = env.shape[1]
         if total == 0:
-            raise InputError(f"--where {where!r} leaves no feature of {path}")
+            raise no_feature_left(where, path)
         info["total_bounds"] = (np.nanmin(env[0]), np.nanmin(env[1]), np.nanmax(env[2]),
                                 np.nanmax(env[3]))
     if total == 0:

@@ -109,8 +109,7 @@ def read_layer(path: str | os.PathLike, /, layer: str | None = None,
         os.path.isdir(path) and any(p.suffix == ".parquet" for p in Path(path).glob("*.parquet"))
     ):
         if where is not None:
-            raise InputError("--where filters files read through GDAL, not GeoParquet; "
-                             "filter the GeoParquet before the scan")
+            raise InputError(WHERE_NOT_HERE)
         return _read_parquet(path)
     chosen = _choose_layer(path, layer)
     try:
@@ -125,6 +124,16 @@ def read_layer(path: str | os.PathLike, /, layer: str | None = None,
         frame = frame.set_crs(None, allow_override=True)  # GeoPackage srs_id 0 / -1
     frame.insert(0, "src_fid", frame.index.to_numpy(dtype="int64"))
     return frame.reset_index(drop=True)
+
+
+#: Why ``--where`` is refused on a source GDAL does not read.
+WHERE_NOT_HERE = ("--where filters files read through GDAL, not GeoParquet or a GeoDataFrame; "
+                  "filter those before the scan")
+
+
+def no_feature_left(where: str, label: str) -> InputError:
+    """The error for a ``--where`` that keeps no feature of ``label``."""
+    return InputError(f"--where {where!r} leaves no feature of {label}")
 
 
 def check_where(path: str, layer: Any, where: str) -> None:
