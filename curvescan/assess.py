@@ -57,6 +57,14 @@ PARAMETERS: tuple[Param, ...] = (
     Param("bridge_field", "field", "bridge",
           "Field flagging bridges or other structures (OSM bridge=*) for the winter score.",
           stage="assess"),
+    Param("flag_at", "choice", "estimate",
+          "Which limit a posted speed is compared with. 'estimate': the estimated limit "
+          "(lower of sliding and rollover). 'band': the low end of its uncertainty band "
+          "(radius and superelevation two standard errors against the road, the low end "
+          "of the condition's friction range, the rollover threshold's low end), so a "
+          "curve is also flagged where it may be sharper or slipperier than estimated; "
+          "such flags get band_position 'under_estimate'.",
+          choices=("estimate", "band"), stage="assess"),
     Param("rings_in_hazards", "bool", False,
           "Keep curves on roundabouts and other closed rings (on_ring) in the hazard and "
           "winter layers; by default they stay in the curves layer only (a roundabout is a "
@@ -170,14 +178,39 @@ def segment_names(frame: gpd.GeoDataFrame, groups: np.ndarray, rows: np.ndarray,
     return first_value(groups, rows, frame[name].to_numpy(dtype=object), n)
 
 
-def _mildest(curves: pd.DataFrame, names: list[str]) -> tuple[np.ndarray, np.ndarray]:
+def compared_limits(curves: pd.DataFrame, names: list[str],
+                    flag_at: str = "estimate") -> tuple[np.ndarray, np.ndarray | None]:
+    """The limits a posted speed is compared with: one column per condition (mildest
+    first) and the rollover limit (``None`` without one).
+
+    ``flag_at="estimate"``: the estimated limits ``v_<cond>_limit_kmh`` and
+    ``v_rollover_kmh``. ``"band"``: the low ends of their bands, ``v_<cond>_low_kmh``
+    (sliding) and ``v_rollover_low_kmh``, the lower of the two per condition.
+    """
+    def col(name: str) -> np.ndarray:
+        return curves[name].to_numpy(dtype=float)
+
+    has_roll = "v_rollover_kmh" in curves
+    if flag_at == "band":
+        roll = col("v_rollover_low_kmh") if "v_rollover_low_kmh" in curves else (
+            col("v_rollover_kmh") if has_roll else None)
+        limit = np.stack([col(f"v_{c}_low_kmh") if f"v_{c}_low_kmh" in curves
+                          else col(f"v_{c}_limit_kmh") for c in names], axis=1)
+        if roll is not None:
+            limit = np.fmin(limit, roll[:, None])
+        return limit, roll
+    limit = np.stack([col(f"v_{c}_limit_kmh") for c in names], axis=1)
+    return limit, (col("v_rollover_kmh") if has_roll else None)
+
+
+def _mildest(curves: pd.DataFrame, names: list[str],
+             flag_at: str = "estimate") -> tuple[np.ndarray, np.ndarray]:
     """Exceedance matrix (curves x conditions) and the mildest condition exceeded."""
     posted = curves["posted_kmh"].to_numpy(dtype=float)
-    limit = np.stack([curves[f"v_{c}_limit_kmh"].to_numpy(dtype=float) for c in names], axis=1)
+    limit, roll = compared_limits(curves, names, flag_at)
     over = posted[:, None] > limit  # NaN compares False
-    if "v_rollover_kmh" in curves:
-        roll = posted > curves["v_rollover_kmh"].to_numpy(dtype=float)
-        over |= roll[:, None]
+    if roll is not None:
+        over |= (posted > roll)[:, None]
     first = np.argmax(over, axis=1)
     mild = np.where(over.any(axis=1), np.asarray(names, dtype=object)[first], None)
     return over, mild
@@ -209,7 +242,7 @@ def hazards(curves: pd.DataFrame, config: Any) -> pd.DataFrame:
     names = condition_order(curves, config)
     if not names:
         return curves.iloc[:0].copy()
-    over, mild = _mildest(curves, names)
+    over, mild = _mildest(curves, names, getattr(config, "flag_at", "estimate"))
     flagged = np.flatnonzero(over.any(axis=1))
     over = over[flagged]
     m = len(flagged)
@@ -246,8 +279,9 @@ def hazards(curves: pd.DataFrame, config: Any) -> pd.DataFrame:
     out["limit_low_kmh"] = np.fmin(pick("v_{}_low_kmh").astype(float), roll_lo.to_numpy(float))
     out["limit_high_kmh"] = np.fmin(pick("v_{}_high_kmh").astype(float),
                                     roll_hi.to_numpy(float))
-    out["band_position"] = np.where(posted > out["limit_high_kmh"].to_numpy(), "above_band",
-                                    "inside_band")
+    out["band_position"] = np.where(
+        posted > out["limit_high_kmh"].to_numpy(), "above_band",
+        np.where(posted > out["limit_kmh"].to_numpy(), "inside_band", "under_estimate"))
     out["friction_margin"] = pick("friction_margin_{}").astype(float)
     out["governing_mechanism"] = pick("mechanism_{}")
     out["severity_rank"] = np.arange(1, m + 1, dtype=np.int64)
@@ -311,7 +345,7 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
     curves = curves.join(consistency(curves, lengths, config))
     names = condition_order(curves, config)
     if names:
-        curves["mildest_condition"] = _mildest(curves, names)[1]
+        curves["mildest_condition"] = _mildest(curves, names, config.flag_at)[1]
     else:
         curves["mildest_condition"] = None
     # curves on roundabouts and closed rings stay in the curves layer only, unless asked
@@ -339,10 +373,12 @@ def run_summary(curves: pd.DataFrame, hz: pd.DataFrame, names: list[str],
 
     ``left_out`` marks the curves kept out of the hazard and winter layers (rings)."""
     posted = curves["posted_kmh"].to_numpy(dtype=float)
-    exceeded = {c: int(np.sum(posted > curves[f"v_{c}_limit_kmh"].to_numpy(float)))
-                for c in names}
-    if "v_rollover_kmh" in curves:
-        exceeded["rollover"] = int(np.sum(posted > curves["v_rollover_kmh"].to_numpy(float)))
+    exceeded: dict[str, int] = {}
+    if names:
+        limit, roll = compared_limits(curves, names, config.flag_at)
+        exceeded = {c: int(np.sum(posted > limit[:, k])) for k, c in enumerate(names)}
+        if roll is not None:
+            exceeded["rollover"] = int(np.sum(posted > roll))
     mech = {c: _counts(hz.loc[hz["mildest_condition"] == c, "governing_mechanism"])
             for c in names} if len(hz) else {}
     cols = ["curve_id", "road_name", "src_fids", "radius_m", "posted_kmh", "limit_kmh",
@@ -358,6 +394,9 @@ def run_summary(curves: pd.DataFrame, hz: pd.DataFrame, names: list[str],
         "hazards_per_mechanism": _counts(hz.get("governing_mechanism", [])),
         "mechanism_per_condition": mech,
         "hazards_above_band": int(np.sum(hz.get("band_position", pd.Series([])) == "above_band")),
+        "flag_at": config.flag_at,
+        "hazards_under_estimate": int(np.sum(hz.get("band_position", pd.Series([]))
+                                             == "under_estimate")),
         "worst_curves": worst_rows.to_dict(orient="records"),
         "consistency_criterion": CRITERION,
         "consistency_counts": _counts(curves["consistency"]),

@@ -77,6 +77,11 @@ def summary_lines(result: Any, worst: int = 10) -> list[str]:
                      + _pairs(summary.get("consistency_counts", {})))
     # a streamed result keeps only the top hazards; the run record has the count
     lines.append(f"hazard curves: {run.get('hazards', len(hazards))}")
+    if summary.get("flag_at") == "band":
+        lines.append("  flagged against the low end of each limit's uncertainty band "
+                     f"(--flag-at band); in {summary.get('hazards_under_estimate', 0)} of them "
+                     "the posted speed is under the estimated limit of the mildest condition "
+                     "flagged (band_position under_estimate)")
     rings = summary.get("ring_curves", 0) if summary else 0
     if rings and not summary.get("ring_curves_in_hazards"):
         lines.append(f"curves on roundabouts or closed rings: {rings} (curves layer only, "
@@ -86,7 +91,7 @@ def summary_lines(result: Any, worst: int = 10) -> list[str]:
             if "severity_rank" in hazards else hazards.head(worst)
         lines.append(f"worst {len(top)} by severity (mildest condition, then excess):")
         lines.append(f"  {'curve':>6} {'radius m':>9} {'posted':>7} {'limit':>7} {'excess':>7}"
-                     f"  {'condition':<9} {'mech':<5} {'band':<11} road")
+                     f"  {'condition':<9} {'mech':<5} {'band':<14} road")
         for row in top.itertuples(index=False):
             r = row._asdict()
             limit = r.get("limit_kmh", np.nan)
@@ -95,7 +100,7 @@ def summary_lines(result: Any, worst: int = 10) -> list[str]:
                 f"{_fmt(r['posted_kmh'])} {_fmt(limit)} {_fmt(r['posted_kmh'] - limit)}  "
                 f"{str(r.get('mildest_condition') or ''):<9} "
                 f"{str(r.get('governing_mechanism') or ''):<5} "
-                f"{str(r.get('band_position') or ''):<11} "
+                f"{str(r.get('band_position') or ''):<14} "
                 f"{_road(r)}")
     try:
         winter = fields("winter") if fields else getattr(result, "extra", {}).get("winter")

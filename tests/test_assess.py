@@ -68,6 +68,45 @@ def test_hazards_mildest_excess_band_and_order():
     assert row["governing_mechanism"] == "slide"
 
 
+def test_flag_at_band_compares_the_low_end_of_the_band():
+    """--flag-at band: a posted speed over the low end of a limit's band is flagged too,
+    with band_position under_estimate; the estimate basis leaves it out."""
+    low = np.array([[115, 75, 60, 35],     # wet low 75 < 80 <= wet estimate 90
+                    [125, 105, 95, 85],    # nothing: 80 under every low end
+                    [115, 95, 85, 79]])    # ice low 79 < 80 < ice estimate 84
+    curves = _table(posted=[80, 80, 80],
+                    limits=[[120, 90, 70, 40], [130, 110, 100, 90], [120, 100, 90, 84]],
+                    low=low)
+    assert list(hazards(curves, make_config())["curve_id"]) == [1]  # snow, estimate
+    band = hazards(curves, make_config(flag_at="band")).set_index("curve_id")
+    assert list(band.index) == [1, 3]
+    assert band.loc[1, "mildest_condition"] == "wet"
+    assert band.loc[1, "exceeds_conditions"] == "wet,snow,ice"
+    assert band.loc[1, "band_position"] == "under_estimate"  # 80 < 90, the wet estimate
+    assert band.loc[1, "limit_low_kmh"] == 75 and band.loc[1, "limit_kmh"] == 90
+    assert band.loc[1, "max_excess_kmh"] == 40  # against the estimates: ice 80 - 40
+    assert band.loc[1, "excess_wet_kmh"] == 0  # under the wet estimate
+    assert band.loc[3, "mildest_condition"] == "ice"
+    assert band.loc[3, "band_position"] == "under_estimate"
+    assert band.loc[3, "max_excess_kmh"] == -4  # under the estimate only
+
+
+def test_flag_at_band_takes_the_low_end_of_the_rollover_band():
+    # rollover 85, its low end 75 (the table's band is +-10): 80 exceeds the low end only
+    curves = _table(posted=[80], limits=[[150, 120, 100, 95]], roll=[85])
+    assert len(hazards(curves, make_config())) == 0
+    hz = hazards(curves, make_config(flag_at="band"))
+    assert len(hz) == 1 and hz["mildest_condition"].iloc[0] == "dry"
+    assert hz["limit_low_kmh"].iloc[0] == 75
+
+
+def test_flag_at_rejects_an_unknown_basis():
+    from curvescan.errors import InputError
+
+    with pytest.raises(InputError, match="--flag-at: 'median' is not valid"):
+        make_config(flag_at="median")
+
+
 def test_rollover_only_exceedance_is_a_hazard():
     curves = _table(posted=[90], limits=[[150, 120, 100, 95]], roll=[85])
     hz = hazards(curves, make_config())

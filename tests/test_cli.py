@@ -127,3 +127,31 @@ def test_demo_runs(runner, tmp_path, demo_roads):
     assert res.exit_code == 0, res.output
     assert "Harrow Vale" in res.output and "hazard curves" in res.output
     assert {"curves", "segments", "hazards", "run"} <= {n for n, _ in pyogrio.list_layers(out)}
+
+
+def test_flag_at_band_from_the_command_line(runner, tmp_path, demo_roads):
+    import json
+
+    common = ["--speed-field", "maxspeed", "--join-field", "ref"]
+    hazards = {}
+    for basis in ("estimate", "band"):
+        out = tmp_path / f"{basis}.gpkg"
+        res = runner.invoke(main, ["scan", str(demo_roads), "-o", str(out), "--flag-at", basis,
+                                   *common])
+        assert res.exit_code == 0, res.output
+        hazards[basis] = pyogrio.read_dataframe(out, layer="hazards", read_geometry=False)
+        run = pyogrio.read_dataframe(out, layer="run", read_geometry=False)
+        assessment = json.loads(run["assessment"].iloc[0])
+        assert assessment["flag_at"] == basis
+        assert ("(--flag-at band)" in res.output) == (basis == "band")
+    # the band flags every curve the estimate flags, and more, some under the estimate
+    est, band = hazards["estimate"], hazards["band"]
+    assert set(est["curve_id"]) < set(band["curve_id"])
+    assert (band["band_position"] == "under_estimate").any()
+    assert not (est["band_position"] == "under_estimate").any()
+    under = band[band["band_position"] == "under_estimate"]
+    assert (under["posted_kmh"] <= under["limit_kmh"]).all()
+    assert (under["posted_kmh"] > under["limit_low_kmh"]).all()
+    res = runner.invoke(main, ["scan", str(demo_roads), "-o", str(tmp_path / "x.gpkg"),
+                               "--flag-at", "worst"])
+    assert res.exit_code == 2 and "--flag-at" in res.output

@@ -129,6 +129,22 @@ def test_local_cluster_gives_the_single_process_curves(network, single, cluster)
     assert_same_layers(single, parted)
 
 
+def test_flag_at_band_partitioned_equals_single_process(network, single, cluster):
+    # the band basis flags a superset of the estimate's hazards, the same in partitions
+    kw = dict(speed_field="maxspeed", flag_at="band")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        one = scan(network, **kw)
+        parted = scan(network, partition_features=12, scheduler=cluster.scheduler_address, **kw)
+    assert len(one.hazards) > len(single.hazards)
+    ids = one.curves.set_index("curve_id")
+    assert set(single.hazards["curve_id"]) < set(one.hazards["curve_id"])
+    assert (one.hazards["band_position"] == "under_estimate").any()
+    assert one.run["assessment"]["flag_at"] == "band"
+    assert ids.loc[one.hazards["curve_id"], "mildest_condition"].notna().all()
+    assert_same_layers(one, parted)
+
+
 def test_junction_and_loop_are_not_joined(network, single):
     # three arms at a junction (3 chains); a loop of two halves joined at their middle
     # whose ends meet a spur (degree 3 there: the loop stays open) and the spur: 2 chains
