@@ -80,6 +80,7 @@ class _Survey:
     part_row: np.ndarray        # (k,) local row of each part
     ordinal: np.ndarray         # (k,) index of the part among its row's kept parts
     group: np.ndarray | None    # (k,) join-field value of each part
+    shapes: np.ndarray          # (k, 3) length, shoelace sum, heading change of each part
     skipped: list
     messages: list
 
@@ -128,7 +129,7 @@ class _Given:
 def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Survey:
     """Read partition ``i``, clean its parts, return their ends (first pass)."""
     from .pipeline import _check_fields
-    from .prepare import join_groups, part_ends
+    from .prepare import join_groups, part_ends, part_shapes
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -138,13 +139,13 @@ def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Surve
         if len(frame) == 0:
             empty = np.zeros((0, 2))
             return _Survey(0, local_fid, empty, np.zeros(0, np.int64), np.zeros(0, np.int64),
-                           None, [], [])
+                           None, np.zeros((0, 3)), [], [])
         _check_fields(frame, config)
         parts, part_row, ordinal, skipped = _cleaned(frame, config, crs)
         _, _, end_xy = part_ends(parts) if len(part_row) else (None, None, np.zeros((0, 4)))
         group = join_groups(frame, config, part_row)
-    return _Survey(len(frame), local_fid, end_xy, part_row, ordinal, group, skipped,
-                   [(w.category, str(w.message)) for w in caught])
+    return _Survey(len(frame), local_fid, end_xy, part_row, ordinal, group,
+                   part_shapes(parts, np.pi * config.ring_max_diameter_m), skipped, [(w.category, str(w.message)) for w in caught])
 
 
 def handover_task(src: Any, i: int, payload: Any, config: Any, offset: int,
@@ -168,6 +169,7 @@ class _Plan:
     width: int                  # key multiplier
     rows_needed: np.ndarray     # global rows to take from handed-over frames
     sources: list               # partitions handing rows over to this one
+    ring_rows: np.ndarray       # global rows of its parts recognised as roundabouts by shape
 
 
 def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, dem: Any,
@@ -211,6 +213,8 @@ def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, 
         chains = assemble(parts[0], starts, ends, part_row, local, plan.reverse, plan.chain,
                           config.join_tolerance_m)
         chains.crs, chains.notes = crs, [note]
+        chains.ring_rows = np.flatnonzero(np.isin(frame["_global_row"].to_numpy(np.int64),
+                                                  plan.ring_rows))
         frame = frame.drop(columns="_global_row")
         timings["prepare"] = round(time.perf_counter() - t, 4)
         layers, speed, terrain_record, vertex_record = scan_chains(
@@ -296,7 +300,7 @@ def _bounds_task(src: Any, i: int, payload: Any) -> np.ndarray:
 
 def _plans(surveys: list[_Survey], config: Any):
     """Join all part ends; return per-partition plans, hand-over rows and totals."""
-    from .prepare import chain_order
+    from .prepare import chain_order, with_rings
 
     n_rows = np.array([s.n_rows for s in surveys], dtype=np.int64)
     offsets = np.concatenate([[0], np.cumsum(n_rows)])
@@ -315,6 +319,9 @@ def _plans(surveys: list[_Survey], config: Any):
         group = np.concatenate([s.group if s.group is not None
                                 else np.full(len(s.part_row), "road", dtype=object)
                                 for s in surveys])
+    shapes = np.concatenate([s.shapes for s in surveys])
+    group, ring = with_rings(group, end_xy, shapes, config)
+    ring_rows = np.unique(grow[ring])
     part, reverse, chain_of = chain_order(end_xy, group, config.join_tolerance_m,
                                           config.through_junction_deg)
     first = np.r_[True, chain_of[1:] != chain_of[:-1]]
@@ -334,9 +341,10 @@ def _plans(surveys: list[_Survey], config: Any):
         plans.append(_Plan(own_rows=rows[local] - offsets[p], offset=int(offsets[p]),
                            keys=keys[part[sel]], reverse=reverse[sel],
                            chain=chain_local.ravel(), width=width, rows_needed=foreign,
-                           sources=np.unique(src_part).tolist()))
+                           sources=np.unique(src_part).tolist(),
+                           ring_rows=ring_rows[np.isin(ring_rows, rows)]))
     handover = [np.unique(np.concatenate(w)) if w else None for w in wanted]
-    return plans, handover, offsets, int(chain_of.max()) + 1
+    return plans, handover, offsets, int(chain_of.max()) + 1, len(ring_rows)
 
 
 def _emit(messages: list, seen: set) -> None:
@@ -392,7 +400,7 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
         if skipped:
             warnings.warn(f"{len(skipped)} input features or parts skipped: "
                           f"{_reason_summary(skipped)}", DataQualityWarning, stacklevel=3)
-        plans, handover, offsets, n_chains = planned
+        plans, handover, offsets, n_chains, n_ring_rows = planned
         n_rows = int(offsets[-1])
         del surveys
         timings["join"] = round(time.perf_counter() - t, 4)
@@ -440,7 +448,8 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
             cluster.close()
     timings["total"] = round(time.perf_counter() - t0, 4)
     return {"crs": crs, "note": note, "input_crs": src.crs, "n_rows": n_rows,
-            "chains": n_chains, "skipped": skipped, "partitions": src.n,
+            "chains": n_chains, "ring_rows": n_ring_rows, "skipped": skipped,
+            "partitions": src.n,
             "timings": timings, "task_timings": part_timings, "messages": sorted(seen)}
 
 
@@ -639,6 +648,7 @@ def _finish(source, dem, config, info: dict, merger: _Merger, layers: dict):
         "vertices": merger.vertices,
         "input_features": info["n_rows"],
         "chains": info["chains"],
+        "roundabout_features_by_shape": info["ring_rows"],
         "curves": merger.counts.get("curves", 0),
         "hazards": merger.counts.get("hazards", 0),
         "segments": merger.counts.get("segments", 0),

@@ -250,7 +250,7 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
                          curves["s_end_m"].to_numpy(), measure)
     del measure  # _layers makes its own, to be able to drop it with the chains' vertices
     speed_report = _attach_attributes(curves, frame, config, curve_rows)
-    _mark_roundabouts(curves, frame, config, curve_rows)
+    _mark_roundabouts(curves, frame, config, curve_rows, chains.ring_rows)
     ter = _timed(timings, "terrain",
                  lambda: terrain.evaluate(curves, geo.stations, config,
                                           None if dem is None else str(dem)))
@@ -349,10 +349,17 @@ def _check_fields(frame: gpd.GeoDataFrame, config: Any) -> None:
 
 
 def _mark_roundabouts(curves: pd.DataFrame, frame: gpd.GeoDataFrame, config: Any,
-                      curve_rows: tuple[np.ndarray, np.ndarray]) -> None:
-    """Set ``on_ring`` also on curves lying on features marked as roundabouts (in place)."""
+                      curve_rows: tuple[np.ndarray, np.ndarray],
+                      shaped: np.ndarray | None = None) -> None:
+    """Set ``on_ring`` also on curves lying on features marked as roundabouts, or
+    recognised as one by their shape (rows ``shaped``), in place."""
     ring = roundabout_rows(frame, config)
-    if ring is None or not ring.any() or not len(curves):
+    if ring is None:
+        ring = np.zeros(len(frame), dtype=bool)
+    if shaped is not None and len(shaped):
+        ring = ring.copy()
+        ring[shaped] = True
+    if not ring.any() or not len(curves):
         return
     groups, rows = curve_rows
     hit = np.zeros(len(curves), dtype=bool)
@@ -474,6 +481,7 @@ def _run_record(source, dem, config, chains, frame, curves, hazards, segments, s
         "physics": physics.run_record(config),
         "input_features": int(len(frame)),
         "chains": int(chains.n_chains),
+        "roundabout_features_by_shape": int(len(chains.ring_rows)),
         "curves": int(len(curves)),
         "hazards": int(len(hazards)),
         "segments": int(len(segments)),

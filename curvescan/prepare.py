@@ -57,6 +57,12 @@ PARAMETERS: tuple[Param, ...] = (
           "1), used where present: roundabout features join only with each other, and "
           "their curves are marked on_ring (a junction, not a curve of the open road).",
           stage="prepare"),
+    Param("ring_max_diameter_m", "float", 100.0,
+          "Recognise untagged roundabouts by their shape: features that close into a round "
+          "loop (turning one way all round, area at least 0.85 of a circle of the same "
+          "perimeter) no wider than this are treated as a roundabout (see "
+          "--roundabout-field); 0 turns the recognition off.", unit="m", stage="prepare",
+          minimum=0.0, maximum=500.0),
     Param("spike_angle_deg", "float", 150.0,
           "A vertex where the line turns back by more than this angle is a digitising spike "
           "and is removed.", unit="deg", stage="prepare", minimum=90.0, maximum=180.0,
@@ -103,6 +109,9 @@ class Chains:
         Input features (or parts) left out, each with ``src_fid`` and ``reason``.
     notes : list of str
         Things the stage decided that a user should know (CRS choice, repairs).
+    ring_rows : ndarray of int
+        Input rows whose parts were recognised as a roundabout by their shape
+        (:func:`ring_parts`).
     """
 
     coords: np.ndarray
@@ -115,6 +124,7 @@ class Chains:
     vertex_reversed: np.ndarray | None = None
     skipped: list[dict] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    ring_rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
 
     @property
     def n_chains(self) -> int:
@@ -261,8 +271,11 @@ def prepare(frame: gpd.GeoDataFrame, config: Any) -> Chains:
         warnings.warn(f"{len(skipped)} input features or parts skipped: "
                       f"{_reason_summary(skipped)}", DataQualityWarning, stacklevel=2)
     group = join_groups(frame, config, part_row)
+    group, ring = with_rings(group, part_ends(coords)[2],
+                             part_shapes(coords, np.pi * config.ring_max_diameter_m), config)
     chains = _join(coords, part_row, group, config.join_tolerance_m,
                    config.through_junction_deg)
+    chains.ring_rows = np.unique(part_row[ring])
     chains.crs = crs
     chains.skipped = skipped
     chains.notes = notes
@@ -451,6 +464,180 @@ def part_ends(parts: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.ndar
     norm = np.hypot(inward[:, 0], inward[:, 1])
     end_xy[:, 2:] = inward / np.where(norm > 0, norm, 1.0)[:, None]
     return starts, ends, end_xy
+
+
+def part_shapes(parts: tuple[np.ndarray, np.ndarray], max_length: float = np.inf) -> np.ndarray:
+    """Per cleaned part: length (m), shoelace sum and heading change within it, ``(n, 3)``.
+
+    The shoelace sum ``sum(x_i y_(i+1) - x_(i+1) y_i)``, with coordinates taken about the
+    part's first vertex, is twice the signed area the part sweeps about that vertex
+    (:func:`ring_parts` moves it to a common point to add up a loop's area). The heading
+    change (radians, left positive) is the turn between the part's successive segments.
+    Only parts no longer than ``max_length`` get the last two (the others 0).
+    """
+    xy, pid = parts
+    n = int(pid[-1]) + 1 if len(pid) else 0
+    out = np.zeros((n, 3))
+    if n == 0:
+        return out
+    same = pid[1:] == pid[:-1]
+    d = np.diff(xy, axis=0)
+    out[:, 0] = np.bincount(pid[1:][same], np.hypot(d[:, 0], d[:, 1])[same], minlength=n)
+    short = out[:, 0] <= max_length
+    if not short.any():
+        return out
+    keep = short[pid]
+    xy, pid = xy[keep], pid[keep]
+    first = np.r_[0, np.flatnonzero(pid[1:] != pid[:-1]) + 1]
+    xy = xy - np.repeat(xy[first], np.diff(np.r_[first, len(pid)]), axis=0)
+    same = pid[1:] == pid[:-1]
+    d = np.diff(xy, axis=0)
+    cross = xy[:-1, 0] * xy[1:, 1] - xy[1:, 0] * xy[:-1, 1]
+    out[:, 1] = np.bincount(pid[1:][same], cross[same], minlength=n)
+    both = same[1:] & same[:-1]
+    a, b = d[:-1][both], d[1:][both]
+    turn = np.arctan2(a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0], np.einsum("ij,ij->i", a, b))
+    out[:, 2] = np.bincount(pid[2:][both], turn, minlength=n)
+    return out
+
+
+#: A loop of parts is a ring when its area is at least this share of a circle's of the
+#: same perimeter (4 pi A / P^2: 1 for a circle, 0.785 for a square).
+RING_ROUNDNESS = 0.85
+#: Largest turn (degrees) from one part into the next around a ring, either way.
+RING_NODE_TURN_DEG = 60.0
+#: Most parts walked around one ring.
+RING_MAX_PARTS = 16
+
+
+def ring_parts(end_xy: np.ndarray, shapes: np.ndarray, tolerance: float,
+               max_diameter_m: float) -> np.ndarray:
+    """Which parts lie on a small round loop of parts (an untagged roundabout).
+
+    From every part, in both directions, walk on through its end node into the part that
+    turns most to the left (at most :data:`RING_NODE_TURN_DEG` either way, parts no longer
+    than the loop may be), for up to :data:`RING_MAX_PARTS` parts. A walk that comes back
+    to the part it started from has gone round a loop counter-clockwise (approaches and
+    exits leave a ring to the right, so a walk keeping left stays on it). The loop is a
+    ring when its perimeter is at most ``pi * max_diameter_m``, its area (from the parts'
+    shoelace sums, :func:`part_shapes`) is positive and at least :data:`RING_ROUNDNESS` of
+    a circle's of that perimeter, and its turns (within the parts and at the nodes) add
+    up to one full turn. A city block is not round enough; a single closed feature is a
+    ring already (a closed chain) and is left to that.
+    """
+    n = len(shapes)
+    ring = np.zeros(n, dtype=bool)
+    if n == 0 or max_diameter_m <= 0 or end_xy.shape[1] < 4:
+        return ring
+    perimeter_max = np.pi * max_diameter_m
+    short = np.flatnonzero(shapes[:, 0] <= perimeter_max)
+    if len(short) < 2:
+        return ring
+    node = np.full(2 * n, -1, dtype=np.int64)
+    short_ends = np.sort(np.r_[2 * short, 2 * short + 1])
+    node[short_ends] = _cluster(end_xy[short_ends, :2], tolerance)
+    cand = (shapes[:, 0] <= perimeter_max) & (node[0::2] != node[1::2])
+    ends = np.flatnonzero(np.repeat(cand, 2))
+    if len(ends) < 4:
+        return ring
+    # traversal x runs through part x >> 1 entering by end x, leaving by end x ^ 1; at the
+    # node of end x ^ 1 it may go on into any other candidate part entering by end y
+    order = ends[np.argsort(node[ends], kind="stable")]
+    first = np.r_[True, node[order][1:] != node[order][:-1]]
+    start = np.flatnonzero(first)
+    count = np.diff(np.r_[start, len(order)])
+    keep = count <= JUNCTION_MAX_ENDS
+    pa, pb = [], []
+    for k in np.unique(count[keep & (count >= 2)]):
+        i, j = np.where(~np.eye(int(k), dtype=bool))
+        base = start[keep & (count == k)][:, None]
+        pa.append((base + i).ravel())
+        pb.append((base + j).ravel())
+    if not pa:
+        return ring
+    leave, enter = order[np.concatenate(pa)], order[np.concatenate(pb)]
+    ok = (leave >> 1) != (enter >> 1)
+    leave, enter = leave[ok], enter[ok]
+    out_dir = -end_xy[leave, 2:]          # travelling out of the part at its end
+    in_dir = end_xy[enter, 2:]            # travelling into the next part
+    turn = np.arctan2(out_dir[:, 0] * in_dir[:, 1] - out_dir[:, 1] * in_dir[:, 0],
+                      np.einsum("ij,ij->i", out_dir, in_dir))
+    ok = np.abs(turn) <= np.radians(RING_NODE_TURN_DEG)
+    leave, enter, turn = leave[ok], enter[ok], turn[ok]
+    if not len(leave):
+        return ring
+    # per leaving end, the most-left continuation
+    pick = np.lexsort((-turn, leave))
+    leave, enter, turn = leave[pick], enter[pick], turn[pick]
+    best = np.r_[True, leave[1:] != leave[:-1]]
+    succ = np.full(2 * n, -1, dtype=np.int64)   # traversal -> next traversal
+    node_turn = np.zeros(2 * n)
+    x = leave[best] ^ 1                         # the traversal that leaves by this end
+    succ[x] = enter[best]
+    node_turn[x] = turn[best]
+    # traversal sums: forward (x even) as digitised, reversed with the signs flipped
+    trav = np.arange(2 * n)
+    sign = np.where(trav & 1, -1.0, 1.0)
+    length = shapes[trav >> 1, 0]
+    inner = sign * shapes[trav >> 1, 2]
+    x0 = np.flatnonzero((succ >= 0) & np.repeat(cand, 2))
+    origin = end_xy[x0, :2]  # each walk adds up its loop's area about its first point
+
+    def area2(x, at):
+        """Twice the area traversal ``x`` sweeps about ``at``, and the gap from the end
+        it enters by (the parts' ends may lie up to the tolerance apart)."""
+        p = x >> 1
+        v0, vn = end_xy[2 * p, :2] - at, end_xy[2 * p + 1, :2] - at
+        swept = shapes[p, 1] + v0[:, 0] * (vn[:, 1] - v0[:, 1]) - v0[:, 1] * (vn[:, 0] - v0[:, 0])
+        return sign[x] * swept
+
+    def gap2(a, b, at):
+        pa, pb = end_xy[a, :2] - at, end_xy[b, :2] - at
+        return pa[:, 0] * pb[:, 1] - pa[:, 1] * pb[:, 0]
+
+    cur = x0.copy()
+    tot_len, tot_area2, tot_turn = length[x0].copy(), area2(x0, origin), inner[x0].copy()
+    closed = np.zeros(len(x0), dtype=bool)
+    alive = np.ones(len(x0), dtype=bool)
+    for _ in range(RING_MAX_PARTS):
+        nxt = succ[cur]
+        step = alive & (nxt >= 0)
+        tot_turn[step] += node_turn[cur[step]]
+        s = np.flatnonzero(step)
+        tot_area2[s] += gap2(cur[s] ^ 1, nxt[s], origin[s])
+        home = step & (nxt == x0)
+        closed |= home
+        go = step & ~home
+        alive = go & (tot_len <= perimeter_max)
+        cur = np.where(go, nxt, cur)
+        g = np.flatnonzero(go)
+        tot_len[g] += length[cur[g]]
+        tot_area2[g] += area2(cur[g], origin[g])
+        tot_turn[g] += inner[cur[g]]
+        if not alive.any():
+            break
+    area = 0.5 * tot_area2
+    round_enough = 4.0 * np.pi * area >= RING_ROUNDNESS * tot_len ** 2
+    full_turn = np.abs(tot_turn - 2.0 * np.pi) <= np.radians(RING_NODE_TURN_DEG)
+    is_ring = closed & (tot_len <= perimeter_max) & (area > 0) & round_enough & full_turn
+    ring[x0[is_ring] >> 1] = True
+    return ring
+
+
+def with_rings(group: np.ndarray | None, end_xy: np.ndarray, shapes: np.ndarray,
+               config: Any) -> tuple[np.ndarray | None, np.ndarray]:
+    """The join groups (:func:`join_groups`) with the parts of untagged rings
+    (:func:`ring_parts`) made roundabouts; and which parts those are (not those marked as
+    roundabouts already)."""
+    ring = ring_parts(end_xy, shapes, config.join_tolerance_m, config.ring_max_diameter_m)
+    if group is not None:
+        ring &= ~np.asarray(group == "roundabout", dtype=bool)
+    if not ring.any():
+        return group, ring
+    if group is None:
+        group = np.full(len(ring), "road", dtype=object)
+    group = np.where(ring, "roundabout", group)
+    return group, ring
 
 
 def _join(parts: tuple[np.ndarray, np.ndarray], part_row: np.ndarray,

@@ -82,6 +82,10 @@ def summary_lines(result: Any, worst: int = 10) -> list[str]:
                      f"(--flag-at band); in {summary.get('hazards_under_estimate', 0)} of them "
                      "the posted speed is under the estimated limit of the mildest condition "
                      "flagged (band_position under_estimate)")
+    shaped = run.get("roundabout_features_by_shape", 0)
+    if shaped:
+        lines.append(f"features recognised as roundabout pieces by their shape: {shaped} "
+                     "(--ring-max-diameter-m; 0 turns it off)")
     rings = summary.get("ring_curves", 0) if summary else 0
     if rings and not summary.get("ring_curves_in_hazards"):
         lines.append(f"curves on roundabouts or closed rings: {rings} (curves layer only, "

@@ -145,6 +145,26 @@ def test_flag_at_band_partitioned_equals_single_process(network, single, cluster
     assert_same_layers(one, parted)
 
 
+def test_untagged_roundabout_recognised_alike_in_partitions(network, cluster):
+    # without the tag the roundabout is recognised by its shape: globally, over part ends
+    # and part shapes, so its pieces in different partitions give the same ring
+    ring = np.flatnonzero(network["junction"].notna().to_numpy())
+    # two of its pieces moved to the first partition, two left in the last
+    rows = np.r_[ring[[1, 3]], np.setdiff1d(np.arange(len(network)), ring[[1, 3]])]
+    untagged = network.drop(columns="junction").iloc[rows].reset_index(drop=True)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        one = scan(untagged, speed_field="maxspeed")
+        parted = scan(untagged, speed_field="maxspeed", partition_features=10,
+                      scheduler=cluster.scheduler_address)
+    assert one.curves["on_ring"].sum() >= 1
+    assert not one.hazards["on_ring"].any()
+    assert parted.run["timings_s"]["partitions"] >= 6
+    assert one.run["roundabout_features_by_shape"] == 4
+    assert parted.run["roundabout_features_by_shape"] == 4
+    assert_same_layers(one, parted)
+
+
 def test_junction_and_loop_are_not_joined(network, single):
     # three arms at a junction (3 chains); a loop of two halves joined at their middle
     # whose ends meet a spur (degree 3 there: the loop stays open) and the spur: 2 chains

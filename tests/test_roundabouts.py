@@ -56,8 +56,15 @@ def _scan(frame, **params):
         return scan(frame, speed_field="maxspeed", **params)
 
 
-def test_tagged_roundabout_is_one_ring_and_no_hazard():
-    res = _scan(roundabout_network())
+@pytest.mark.parametrize("tag,reverse", [(True, ()), (False, ()), (False, (1, 2))])
+def test_roundabout_is_one_ring_and_no_hazard(tag, reverse):
+    """Tagged, or untagged and recognised by its shape (the four pieces close a round loop
+    of 40 m), also with pieces digitised the other way: the pieces join only each other,
+    into one ring that is no hazard."""
+    frame = roundabout_network(tag=tag)
+    for k in reverse:
+        frame.loc[k, "geometry"] = frame.geometry.iloc[k].reverse()
+    res = _scan(frame)
     c = res.curves
     ring = c[c["on_ring"]]
     assert len(ring) == 1
@@ -68,15 +75,55 @@ def test_tagged_roundabout_is_one_ring_and_no_hazard():
     assert len(res.hazards) == 0
     assert len(res.extra["winter"]) == 0
     assert res.run["assessment"]["ring_curves"] == 1
+    assert res.run["roundabout_features_by_shape"] == (0 if tag else 4)
 
 
-def test_untagged_approaches_are_joined_into_the_ring():
-    """The case the tag is for: without it each approach runs on into a quarter of the
-    ring, which is then a hazard curve of 20 m radius."""
-    res = _scan(roundabout_network(tag=False))
+def test_untagged_approaches_are_joined_into_the_ring_without_shape_recognition():
+    """The case the tag is for: without it (and with the recognition by shape off) each
+    approach runs on into a quarter of the ring, which is then a hazard curve of 20 m
+    radius."""
+    res = _scan(roundabout_network(tag=False), ring_max_diameter_m=0)
     assert len(res.curves) == 4
     assert not res.curves["on_ring"].any()
     assert len(res.hazards) == 4
+
+
+def _loop_parts(points_per_part, crs=CRS):
+    n = len(points_per_part)
+    return gpd.GeoDataFrame({"src_fid": np.arange(n), "maxspeed": ["50"] * n},
+                            geometry=[shapely.LineString(p) for p in points_per_part], crs=crs)
+
+
+def test_ring_parts_finds_round_loops_only():
+    from curvescan.prepare import _clean_parts, part_ends, part_shapes, ring_parts
+
+    def rings(frame, diameter=100.0):
+        (xy, pid), part_row, _ = _clean_parts(np.asarray(frame.geometry.values, dtype=object),
+                                               frame, make_config())
+        ring = ring_parts(part_ends((xy, pid))[2], part_shapes((xy, pid)), 0.5, diameter)
+        return ring[np.argsort(part_row)]
+
+    c = np.array([500000.0, 5500000.0])
+    # an octagon of 8 two-vertex pieces, 30 m across: round enough (4 pi A / P^2 = 0.95)
+    th = np.radians(np.arange(0.0, 361.0, 45.0))
+    octagon = c + 15.0 * np.c_[np.cos(th), np.sin(th)]
+    assert rings(_loop_parts([octagon[i:i + 2] for i in range(8)])).all()
+    # too wide for the limit: 30 m across against 20 m
+    assert not rings(_loop_parts([octagon[i:i + 2] for i in range(8)]), diameter=20.0).any()
+    # a city block of four straight streets, 60 m square (0.785 of a circle): not a ring
+    sq = c + np.array([[0, 0], [60, 0], [60, 60], [0, 60], [0, 0]], dtype=float)
+    assert not rings(_loop_parts([sq[i:i + 2] for i in range(4)])).any()
+    # a long thin loop (a lay-by beside the road): not round
+    lay = c + np.array([[0, 0], [80, 0], [80, 8], [0, 8], [0, 0]], dtype=float)
+    assert not rings(_loop_parts([lay[:3], lay[2:]])).any()
+    # ends that meet within the join tolerance only (0.3 m gaps), far from the CRS origin:
+    # the loop's area is added up about a point of the loop, the gaps closed
+    gappy = [octagon[i:i + 2] + [[0.0, 0.0], [0.3 * (i % 2), 0.0]] for i in range(8)]
+    assert rings(_loop_parts(gappy)).all()
+    # a side road that leaves the octagon and comes back elsewhere is not part of it
+    out = np.array([octagon[2], octagon[2] + [0, 40], octagon[4] + [0, 40], octagon[4]])
+    got = rings(_loop_parts([octagon[i:i + 2] for i in range(8)] + [out]))
+    assert got[:8].all() and not got[8]
 
 
 def test_rings_in_hazards_keeps_them():
