@@ -294,8 +294,10 @@ def _working_crs(src: Any, config: Any, client: Any):
 
 
 def _bounds_task(src: Any, i: int, payload: Any) -> np.ndarray:
+    from .prepare import finite_bounds
+
     frame = src.read(i, payload)
-    return frame.total_bounds if len(frame) else np.full(4, np.nan)
+    return finite_bounds(frame.geometry.values) if len(frame) else np.full(4, np.nan)
 
 
 def _plans(surveys: list[_Survey], config: Any):

@@ -150,6 +150,24 @@ class Chains:
         self.vertex_reversed = None
 
 
+def finite_bounds(geoms: Any) -> np.ndarray:
+    """Extent ``(minx, miny, maxx, maxy)`` of the finite coordinates of ``geoms`` (NaN
+    where there are none): one vertex at infinity or NaN does not spoil the extent."""
+    geoms = np.asarray(geoms, dtype=object)
+    b = shapely.bounds(geoms)
+    good = np.isfinite(b).all(axis=1)
+    boxes = [b[good]]
+    odd = ~good & ~shapely.is_empty(geoms) & (shapely.get_type_id(geoms) >= 0)
+    if odd.any():
+        xy = shapely.get_coordinates(geoms[odd])
+        xy = xy[np.isfinite(xy).all(axis=1)]
+        boxes.append(np.c_[xy, xy])
+    box = np.concatenate(boxes)
+    if not len(box):
+        return np.full(4, np.nan)
+    return np.array([box[:, 0].min(), box[:, 1].min(), box[:, 2].max(), box[:, 3].max()])
+
+
 def working_crs(frame: gpd.GeoDataFrame, override: Any = None) -> tuple[pyproj.CRS, str]:
     """Choose the metric CRS to compute in, and say why.
 
@@ -162,7 +180,7 @@ def working_crs(frame: gpd.GeoDataFrame, override: Any = None) -> tuple[pyproj.C
         crs = parse_crs(override, what="--crs")
         _require_metric(crs, "--crs")
         return crs, f"working CRS given by the user: {crs.to_string()}"
-    bounds = frame.total_bounds
+    bounds = finite_bounds(frame.geometry.values)
     if not np.all(np.isfinite(bounds)):
         raise InputError("the input has no coordinates to compute an extent from")
     if src.is_projected:
@@ -363,6 +381,12 @@ def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any,
         del px, py
     x, y = xy[:, 0], xy[:, 1]
     finite = np.isfinite(x) & np.isfinite(y)
+    n_finite = np.bincount(vidx[finite], minlength=len(part_row))
+    if not finite.all():
+        warnings.warn(f"{int(np.count_nonzero(~finite))} vertices with non-finite coordinates "
+                      "(NaN or infinite, or beyond the range of the working CRS) removed "
+                      f"from {len(np.unique(part_row[vidx[~finite]]))} features",
+                      DataQualityWarning, stacklevel=3)
     # drop repeated vertices (and non-finite ones)
     drop = ~finite
     drop[1:] |= ((vidx[1:] == vidx[:-1]) & (np.abs(x[1:] - x[:-1]) < 1e-6)
@@ -380,7 +404,9 @@ def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any,
     ok = counts >= 2
     for i in np.flatnonzero(~ok):
         skipped.append({"src_fid": int(src_fid[part_row[i]]),
-                        "reason": "fewer than two distinct vertices (zero length)"})
+                        "reason": "fewer than two distinct vertices (zero length)"
+                        if n_finite[i] >= 2 else "fewer than two vertices with finite "
+                        "coordinates (NaN, infinite or beyond the working CRS)"})
     if ok.all():
         return (xy, vidx), part_row, skipped
     keep_v = ok[vidx]

@@ -76,3 +76,43 @@ def test_messy_network_loses_no_row(kind, seed):
     assert covered | skipped == set(range(len(frame)))
     assert not covered & skipped
     assert np.isfinite(result.curves["radius_m"]).all()
+
+
+@pytest.mark.parametrize("bad", [np.nan, np.inf])
+@pytest.mark.parametrize("partitioned", [False, True])
+def test_non_finite_vertex_is_removed_with_a_warning(bad, partitioned):
+    """One vertex at NaN or infinity: the extent and working CRS come from the finite
+    coordinates, the vertex goes with a recorded warning, the curve stays as it is."""
+    from curvescan.errors import DataQualityWarning
+
+    th = np.linspace(0.0, np.pi / 2, 20)
+    arc = np.c_[5e5 + 100.0 * np.sin(th), 5e6 + 100.0 * (1.0 - np.cos(th))]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # shapely's own note on the invalid value
+        broken = shapely.LineString(np.vstack([arc[:5], [[bad, 5e6]], arc[5:]]))
+    frame = gpd.GeoDataFrame({"maxspeed": ["80", "80"]},
+                             geometry=[broken, shapely.LineString(arc + 1000.0)],
+                             crs="EPSG:32632")
+    kw = {"partition_features": 10} if partitioned else {}
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = curvescan.scan(frame, **kw)
+    said = [str(w.message) for w in caught if issubclass(w.category, DataQualityWarning)]
+    assert any("1 vertices with non-finite coordinates" in m and "from 1 features" in m
+               for m in said), said
+    # ground radii: UTM shrinks the map by 0.9996 on its central meridian
+    assert res.curves["radius_m"].to_numpy() == pytest.approx([100.04, 100.04], rel=1e-4)
+    assert res.run["skipped_features"] == 0
+
+
+def test_feature_with_no_finite_coordinates_is_skipped_with_its_reason():
+    frame = gpd.GeoDataFrame(
+        {"maxspeed": ["80", "80"]},
+        geometry=[shapely.LineString([(5e5, 5e6), (5e5 + 300.0, 5e6)]),
+                  shapely.LineString([(np.inf, 5e6), (np.inf, 5e6 + 1.0)])], crs="EPSG:32632")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = curvescan.scan(frame)
+    assert res.run["skipped"] == [{"src_fid": 1, "reason": "fewer than two vertices with "
+                                   "finite coordinates (NaN, infinite or beyond the working "
+                                   "CRS)"}]

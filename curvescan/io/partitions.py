@@ -138,7 +138,9 @@ def open_partitions(source: Any, *, layer: str | None, partition_features: int,
         parts = [source.iloc[a:a + partition_features].reset_index(drop=True) for a in starts]
         if client is not None and not _in_process(client):
             parts = client.scatter(parts)
-        bounds = source.total_bounds if len(source) else None
+        from ..prepare import finite_bounds
+
+        bounds = finite_bounds(source.geometry.values) if len(source) else None
         return PartitionSource("frame", None, source.crs, bounds, len(parts), parts=parts,
                                columns=list(source.columns))
     path = str(source)
@@ -162,6 +164,7 @@ def open_partitions(source: Any, *, layer: str | None, partition_features: int,
             check_where(path, chosen, where)
             raise
         total = env.shape[1]
+        env = np.where(np.isfinite(env), env, np.nan)  # a vertex at infinity: left out
         if total == 0:
             raise no_feature_left(where, path)
         info["total_bounds"] = (np.nanmin(env[0]), np.nanmin(env[1]), np.nanmax(env[2]),
