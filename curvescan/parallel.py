@@ -81,6 +81,8 @@ class _Survey:
     ordinal: np.ndarray         # (k,) index of the part among its row's kept parts
     group: np.ndarray | None    # (k,) join-field value of each part
     shapes: np.ndarray          # (k, 3) length, shoelace sum, heading change of each part
+    identity: np.ndarray        # (k, 3) vertex count and mean vertex of each part
+    part_fid: np.ndarray        # (k,) src_fid of each part's row (local where local_fid)
     skipped: list
     messages: list
 
@@ -129,7 +131,7 @@ class _Given:
 def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Survey:
     """Read partition ``i``, clean its parts, return their ends (first pass)."""
     from .pipeline import _check_fields
-    from .prepare import join_groups, part_ends, part_shapes
+    from .prepare import join_groups, part_ends, part_identity, part_shapes
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -139,13 +141,17 @@ def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Surve
         if len(frame) == 0:
             empty = np.zeros((0, 2))
             return _Survey(0, local_fid, empty, np.zeros(0, np.int64), np.zeros(0, np.int64),
-                           None, np.zeros((0, 3)), [], [])
+                           None, np.zeros((0, 3)), np.zeros((0, 3)), np.zeros(0, np.int64),
+                           [], [])
         _check_fields(frame, config)
         parts, part_row, ordinal, skipped = _cleaned(frame, config, crs)
         _, _, end_xy = part_ends(parts) if len(part_row) else (None, None, np.zeros((0, 4)))
         group = join_groups(frame, config, part_row)
-    return _Survey(len(frame), local_fid, end_xy, part_row, ordinal, group,
-                   part_shapes(parts, np.pi * config.ring_max_diameter_m), skipped, [(w.category, str(w.message)) for w in caught])
+        shapes = part_shapes(parts, np.pi * config.ring_max_diameter_m)
+        part_fid = frame["src_fid"].to_numpy(np.int64)[part_row]
+    return _Survey(len(frame), local_fid, end_xy, part_row, ordinal, group, shapes,
+                   part_identity(parts), part_fid, skipped,
+                   [(w.category, str(w.message)) for w in caught])
 
 
 def handover_task(src: Any, i: int, payload: Any, config: Any, offset: int,
@@ -302,7 +308,7 @@ def _bounds_task(src: Any, i: int, payload: Any) -> np.ndarray:
 
 def _plans(surveys: list[_Survey], config: Any):
     """Join all part ends; return per-partition plans, hand-over rows and totals."""
-    from .prepare import chain_order, with_rings
+    from .prepare import chain_order, duplicate_parts, duplicate_skips, with_rings
 
     n_rows = np.array([s.n_rows for s in surveys], dtype=np.int64)
     offsets = np.concatenate([[0], np.cumsum(n_rows)])
@@ -322,10 +328,24 @@ def _plans(surveys: list[_Survey], config: Any):
                                 else np.full(len(s.part_row), "road", dtype=object)
                                 for s in surveys])
     shapes = np.concatenate([s.shapes for s in surveys])
+    # duplicates take no part in chains (the same rule as prepare, over all partitions)
+    kept = np.arange(len(grow))
+    skipped: list[dict] = []
+    if config.drop_duplicates:
+        fid = np.concatenate([s.part_fid + (offsets[k] if s.local_fid else 0)
+                              for k, s in enumerate(surveys)])
+        dup, of = duplicate_parts(end_xy, shapes[:, 0],
+                                  np.concatenate([s.identity for s in surveys]))
+        skipped = duplicate_skips(fid, dup, of)
+        kept = np.flatnonzero(~dup)
+        both = np.repeat(kept * 2, 2) + np.tile([0, 1], len(kept))
+        end_xy, shapes = end_xy[both], shapes[kept]
+        group = None if group is None else group[kept]
     group, ring = with_rings(group, end_xy, shapes, config)
-    ring_rows = np.unique(grow[ring])
+    ring_rows = np.unique(grow[kept[ring]])
     part, reverse, chain_of = chain_order(end_xy, group, config.join_tolerance_m,
                                           config.through_junction_deg)
+    part = kept[part]
     first = np.r_[True, chain_of[1:] != chain_of[:-1]]
     home_of_chain = part_of[part[first]]
     home = home_of_chain[chain_of]          # per entry of the chain order
@@ -346,7 +366,7 @@ def _plans(surveys: list[_Survey], config: Any):
                            sources=np.unique(src_part).tolist(),
                            ring_rows=ring_rows[np.isin(ring_rows, rows)]))
     handover = [np.unique(np.concatenate(w)) if w else None for w in wanted]
-    return plans, handover, offsets, int(chain_of.max()) + 1, len(ring_rows)
+    return plans, handover, offsets, int(chain_of.max()) + 1, len(ring_rows), skipped
 
 
 def _emit(messages: list, seen: set) -> None:
@@ -399,10 +419,11 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
         if planned is None:
             raise InputError("the input has no usable line geometries "
                              f"({len(skipped)} features skipped: {_reason_summary(skipped)})")
+        plans, handover, offsets, n_chains, n_ring_rows, duplicates = planned
+        skipped = skipped + duplicates
         if skipped:
             warnings.warn(f"{len(skipped)} input features or parts skipped: "
                           f"{_reason_summary(skipped)}", DataQualityWarning, stacklevel=3)
-        plans, handover, offsets, n_chains, n_ring_rows = planned
         n_rows = int(offsets[-1])
         del surveys
         timings["join"] = round(time.perf_counter() - t, 4)

@@ -57,6 +57,10 @@ PARAMETERS: tuple[Param, ...] = (
           "1), used where present: roundabout features join only with each other, and "
           "their curves are marked on_ring (a junction, not a curve of the open road).",
           stage="prepare"),
+    Param("drop_duplicates", "bool", True,
+          "Skip features (or parts) whose line repeats an earlier one's, vertex for vertex in "
+          "either direction; each is listed in the run record's skipped with the feature it "
+          "repeats. A duplicate would report its curves and hazards twice.", stage="prepare"),
     Param("ring_max_diameter_m", "float", 100.0,
           "Recognise untagged roundabouts by their shape: features that close into a round "
           "loop (turning one way all round, area at least 0.85 of a circle of the same "
@@ -282,6 +286,13 @@ def prepare(frame: gpd.GeoDataFrame, config: Any) -> Chains:
         project = pyproj.Transformer.from_crs(frame.crs, crs, always_xy=True).transform
     coords, part_row, skipped = _clean_parts(np.asarray(frame.geometry.values, dtype=object),
                                              frame, config, project)
+    shapes = part_shapes(coords, np.pi * config.ring_max_diameter_m)
+    if config.drop_duplicates and part_row.size:
+        fid = frame["src_fid"].to_numpy()
+        dup, of = duplicate_parts(part_ends(coords)[2], shapes[:, 0], part_identity(coords))
+        skipped = skipped + duplicate_skips(fid[part_row], dup, of)
+        coords, part_row = drop_parts(coords, part_row, dup)
+        shapes = shapes[~dup]
     if part_row.size == 0:
         raise InputError("the input has no usable line geometries "
                          f"({len(skipped)} features skipped: {_reason_summary(skipped)})")
@@ -289,8 +300,7 @@ def prepare(frame: gpd.GeoDataFrame, config: Any) -> Chains:
         warnings.warn(f"{len(skipped)} input features or parts skipped: "
                       f"{_reason_summary(skipped)}", DataQualityWarning, stacklevel=2)
     group = join_groups(frame, config, part_row)
-    group, ring = with_rings(group, part_ends(coords)[2],
-                             part_shapes(coords, np.pi * config.ring_max_diameter_m), config)
+    group, ring = with_rings(group, part_ends(coords)[2], shapes, config)
     chains = _join(coords, part_row, group, config.join_tolerance_m,
                    config.through_junction_deg)
     chains.ring_rows = np.unique(part_row[ring])
@@ -343,6 +353,23 @@ def join_groups(frame: gpd.GeoDataFrame, config: Any, part_row: np.ndarray
     road = np.full(len(part_row), "road", dtype=object) if group is None else np.where(
         pd.notna(group), np.array(["road\x1f" + str(g) for g in group], dtype=object), None)
     return np.where(ring, "roundabout", road)
+
+
+def duplicate_skips(part_fid: np.ndarray, dup: np.ndarray, of: np.ndarray) -> list[dict]:
+    """Skipped-list entries for duplicate parts (``src_fid`` per part)."""
+    return [{"src_fid": int(part_fid[i]), "reason": f"duplicate of src_fid {int(part_fid[j])}"}
+            for i, j in zip(np.flatnonzero(dup), of[dup])]
+
+
+def drop_parts(parts: tuple[np.ndarray, np.ndarray], part_row: np.ndarray,
+               drop: np.ndarray) -> tuple[tuple[np.ndarray, np.ndarray], np.ndarray]:
+    """The cleaned parts without those marked in ``drop``, renumbered."""
+    if not drop.any():
+        return parts, part_row
+    xy, pid = parts
+    keep_v = ~drop[pid]
+    new_id = np.cumsum(~drop) - 1
+    return (xy[keep_v], new_id[pid[keep_v]]), part_row[~drop]
 
 
 def _reason_summary(skipped: list[dict]) -> str:
@@ -525,6 +552,50 @@ def part_shapes(parts: tuple[np.ndarray, np.ndarray], max_length: float = np.inf
     turn = np.arctan2(a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0], np.einsum("ij,ij->i", a, b))
     out[:, 2] = np.bincount(pid[2:][both], turn, minlength=n)
     return out
+
+
+def part_identity(parts: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+    """Per cleaned part: vertex count and mean vertex ``(x, y)``, ``(n, 3)``; with its ends
+    and length (:func:`part_ends`, :func:`part_shapes`) what :func:`duplicate_parts`
+    compares."""
+    xy, pid = parts
+    n = int(pid[-1]) + 1 if len(pid) else 0
+    count = np.bincount(pid, minlength=n).astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.c_[count, np.bincount(pid, xy[:, 0], minlength=n) / count,
+                     np.bincount(pid, xy[:, 1], minlength=n) / count]
+
+
+#: Coordinates and lengths (m) are compared rounded to this when finding duplicates.
+DUPLICATE_ROUNDING_M = 1e-3
+
+
+def duplicate_parts(end_xy: np.ndarray, length: np.ndarray,
+                    identity: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Which parts repeat an earlier part, and the earlier part each repeats (-1: none).
+
+    Two parts are the same line when their two ends (in either order), their lengths,
+    vertex counts and mean vertices agree to :data:`DUPLICATE_ROUNDING_M`: the same
+    vertices, digitised either way. Two different lines between the same ends (the two
+    sides of an island) differ in their mean vertex.
+    """
+    n = len(length)
+    if n == 0:
+        return np.zeros(0, dtype=bool), np.zeros(0, dtype=np.int64)
+    q = DUPLICATE_ROUNDING_M
+    a = np.round(end_xy[0::2, :2] / q)
+    b = np.round(end_xy[1::2, :2] / q)
+    swap = (b[:, 0] < a[:, 0]) | ((b[:, 0] == a[:, 0]) & (b[:, 1] < a[:, 1]))
+    lo, hi = np.where(swap[:, None], b, a), np.where(swap[:, None], a, b)
+    keys = pd.DataFrame({"ax": lo[:, 0], "ay": lo[:, 1], "bx": hi[:, 0], "by": hi[:, 1],
+                         "len": np.round(length / q), "n": identity[:, 0],
+                         "mx": np.round(identity[:, 1] / q), "my": np.round(identity[:, 2] / q)})
+    group = keys.groupby(list(keys.columns), sort=False, dropna=False).ngroup().to_numpy()
+    first = np.full(group.max() + 1, n, dtype=np.int64)
+    np.minimum.at(first, group, np.arange(n))
+    of = first[group]
+    dup = of != np.arange(n)
+    return dup, np.where(dup, of, -1)
 
 
 #: A loop of parts is a ring when its area is at least this share of a circle's of the

@@ -165,6 +165,32 @@ def test_untagged_roundabout_recognised_alike_in_partitions(network, cluster):
     assert_same_layers(one, parted)
 
 
+def test_duplicates_across_partitions_are_skipped_alike(network, single, cluster):
+    # copies of early features (one digitised backwards) at the end of the layer, in
+    # another partition: skipped in both paths with the feature they repeat, and the
+    # curves are the single-process curves of the layer without them
+    import geopandas as gpd
+
+    copies = network.iloc[[3, 7]].copy()
+    copies.loc[copies.index[1], "geometry"] = copies.geometry.iloc[1].reverse()
+    doubled = gpd.GeoDataFrame(pd.concat([network, copies], ignore_index=True),
+                               crs=network.crs)
+    n = len(network)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        one = scan(doubled, speed_field="maxspeed")
+        parted = scan(doubled, speed_field="maxspeed", partition_features=12,
+                      scheduler=cluster.scheduler_address)
+    want = [{"src_fid": n, "reason": "duplicate of src_fid 3"},
+            {"src_fid": n + 1, "reason": "duplicate of src_fid 7"}]
+    for res in (one, parted):
+        got = [s for s in res.run["skipped"] if s["reason"].startswith("duplicate")]
+        assert sorted(got, key=lambda s: s["src_fid"]) == want
+    assert_same_layers(one, parted)
+    assert len(one.curves) == len(single.curves)
+    assert np.allclose(np.sort(one.curves["radius_m"]), np.sort(single.curves["radius_m"]))
+
+
 def test_junction_and_loop_are_not_joined(network, single):
     # three arms at a junction (3 chains); a loop of two halves joined at their middle
     # whose ends meet a spur (degree 3 there: the loop stays open) and the spur: 2 chains

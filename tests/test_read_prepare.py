@@ -198,9 +198,33 @@ def test_duplicated_feature_is_not_joined_back_onto_itself():
     s = np.append(np.arange(0, al.length_m, 10.0), al.length_m)
     xy = al.points(s)
     for copy in (xy.copy(), xy[::-1].copy()):
-        chains = _chains(frame_from_lines([xy, copy]))
+        # kept (--drop-duplicates off): two chains, not one doubling back
+        chains = _chains(frame_from_lines([xy, copy]), drop_duplicates=False)
         assert chains.n_chains == 2
         assert not chains.closed.any()
+        # by default the copy is skipped, with the feature it repeats
+        chains = _chains(frame_from_lines([xy, copy]))
+        assert chains.n_chains == 1
+        assert chains.skipped == [{"src_fid": 1, "reason": "duplicate of src_fid 0"}]
+
+
+def test_duplicates_are_exact_repeats_only():
+    """Same vertices either way round are a duplicate; the two sides of an island between
+    the same two nodes (same length, same ends), a line 1 cm aside or one vertex more
+    are not. A repeated part of a multi-line feature is skipped like a feature."""
+    th = np.linspace(0.0, np.pi, 19)
+    upper = np.c_[6e5 + 50.0 * np.cos(th), 5.1e6 + 50.0 * np.sin(th)]
+    lower = upper * [1.0, -1.0] + [0.0, 2 * 5.1e6]
+    aside = upper + [0.0, 0.01]
+    denser = np.insert(upper, 1, 0.5 * (upper[0] + upper[1]), axis=0)
+    frame = frame_from_lines([upper, lower, aside, denser, upper[::-1]])
+    chains = _chains(frame, join_tolerance_m=0.0)
+    assert chains.skipped == [{"src_fid": 4, "reason": "duplicate of src_fid 0"}]
+    import shapely
+    multi = frame_from_lines([upper])
+    multi.loc[0, "geometry"] = shapely.MultiLineString([upper, lower, upper[::-1]])
+    chains = _chains(multi, join_tolerance_m=0.0)
+    assert chains.skipped == [{"src_fid": 0, "reason": "duplicate of src_fid 0"}]
 
 
 def _spikes_reference(xy, vidx, limit_rad, passes=3):
