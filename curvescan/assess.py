@@ -187,20 +187,14 @@ def compared_limits(curves: pd.DataFrame, names: list[str],
     ``v_rollover_kmh``. ``"band"``: the low ends of their bands, ``v_<cond>_low_kmh``
     (sliding) and ``v_rollover_low_kmh``, the lower of the two per condition.
     """
-    def col(name: str) -> np.ndarray:
-        return curves[name].to_numpy(dtype=float)
-
-    has_roll = "v_rollover_kmh" in curves
-    if flag_at == "band":
-        roll = col("v_rollover_low_kmh") if "v_rollover_low_kmh" in curves else (
-            col("v_rollover_kmh") if has_roll else None)
-        limit = np.stack([col(f"v_{c}_low_kmh") if f"v_{c}_low_kmh" in curves
-                          else col(f"v_{c}_limit_kmh") for c in names], axis=1)
-        if roll is not None:
-            limit = np.fmin(limit, roll[:, None])
-        return limit, roll
-    limit = np.stack([col(f"v_{c}_limit_kmh") for c in names], axis=1)
-    return limit, (col("v_rollover_kmh") if has_roll else None)
+    band = flag_at == "band"
+    limit = np.stack([curves[f"v_{c}_low_kmh" if band else f"v_{c}_limit_kmh"]
+                      .to_numpy(dtype=float) for c in names], axis=1)
+    if "v_rollover_kmh" not in curves:
+        return limit, None
+    roll = curves["v_rollover_low_kmh" if band else "v_rollover_kmh"].to_numpy(dtype=float)
+    # the estimated limits include rollover already; the sliding band's low end does not
+    return (np.fmin(limit, roll[:, None]) if band else limit), roll
 
 
 def _mildest(curves: pd.DataFrame, names: list[str],
@@ -242,7 +236,7 @@ def hazards(curves: pd.DataFrame, config: Any) -> pd.DataFrame:
     names = condition_order(curves, config)
     if not names:
         return curves.iloc[:0].copy()
-    over, mild = _mildest(curves, names, getattr(config, "flag_at", "estimate"))
+    over, mild = _mildest(curves, names, config.flag_at)
     flagged = np.flatnonzero(over.any(axis=1))
     over = over[flagged]
     m = len(flagged)

@@ -76,13 +76,11 @@ def wants_partitions(source: Any, config: Any) -> bool:
 class _Survey:
     n_rows: int
     local_fid: bool             # src_fid counted from 0 in this partition (no stored ids)
-    end_xy: np.ndarray          # (2 k, 4) part ends and directions into the parts
     part_row: np.ndarray        # (k,) local row of each part
     ordinal: np.ndarray         # (k,) index of the part among its row's kept parts
     group: np.ndarray | None    # (k,) join-field value of each part
-    shapes: np.ndarray          # (k, 3) length, shoelace sum, heading change of each part
-    identity: np.ndarray        # (k, 3) vertex count and mean vertex of each part
-    part_fid: np.ndarray        # (k,) src_fid of each part's row (local where local_fid)
+    summary: Any                # prepare.PartSummary of the parts (src_fid local where
+                                # local_fid)
     skipped: list
     messages: list
 
@@ -131,7 +129,7 @@ class _Given:
 def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Survey:
     """Read partition ``i``, clean its parts, return their ends (first pass)."""
     from .pipeline import _check_fields
-    from .prepare import join_groups, part_ends, part_identity, part_shapes
+    from .prepare import PartSummary, join_groups
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -139,18 +137,13 @@ def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Surve
         local_fid = "src_fid" not in raw.columns
         frame = _load_partition(_Given(raw), 0, None, config, offset=0)
         if len(frame) == 0:
-            empty = np.zeros((0, 2))
-            return _Survey(0, local_fid, empty, np.zeros(0, np.int64), np.zeros(0, np.int64),
-                           None, np.zeros((0, 3)), np.zeros((0, 3)), np.zeros(0, np.int64),
-                           [], [])
+            return _Survey(0, local_fid, np.zeros(0, np.int64), np.zeros(0, np.int64),
+                           None, PartSummary.empty(), [], [])
         _check_fields(frame, config)
         parts, part_row, ordinal, skipped = _cleaned(frame, config, crs)
-        _, _, end_xy = part_ends(parts) if len(part_row) else (None, None, np.zeros((0, 4)))
         group = join_groups(frame, config, part_row)
-        shapes = part_shapes(parts, np.pi * config.ring_max_diameter_m)
-        part_fid = frame["src_fid"].to_numpy(np.int64)[part_row]
-    return _Survey(len(frame), local_fid, end_xy, part_row, ordinal, group, shapes,
-                   part_identity(parts), part_fid, skipped,
+        summary = PartSummary.of(parts, frame["src_fid"].to_numpy(np.int64)[part_row], config)
+    return _Survey(len(frame), local_fid, part_row, ordinal, group, summary, skipped,
                    [(w.category, str(w.message)) for w in caught])
 
 
@@ -308,7 +301,7 @@ def _bounds_task(src: Any, i: int, payload: Any) -> np.ndarray:
 
 def _plans(surveys: list[_Survey], config: Any):
     """Join all part ends; return per-partition plans, hand-over rows and totals."""
-    from .prepare import chain_order, duplicate_parts, duplicate_skips, with_rings
+    from .prepare import PartSummary, chain_order, screen_summaries
 
     n_rows = np.array([s.n_rows for s in surveys], dtype=np.int64)
     offsets = np.concatenate([[0], np.cumsum(n_rows)])
@@ -320,31 +313,23 @@ def _plans(surveys: list[_Survey], config: Any):
     ordinal = np.concatenate([s.ordinal for s in surveys])
     width = int(ordinal.max()) + 1
     keys = grow * width + ordinal
-    end_xy = np.concatenate([s.end_xy for s in surveys])
     # every partition of one layer has the same fields, so all send groups or none
     group = None
     if any(s.group is not None for s in surveys):
         group = np.concatenate([s.group if s.group is not None
                                 else np.full(len(s.part_row), "road", dtype=object)
                                 for s in surveys])
-    shapes = np.concatenate([s.shapes for s in surveys])
-    # duplicates take no part in chains (the same rule as prepare, over all partitions)
-    kept = np.arange(len(grow))
-    skipped: list[dict] = []
-    if config.drop_duplicates:
-        fid = np.concatenate([s.part_fid + (offsets[k] if s.local_fid else 0)
-                              for k, s in enumerate(surveys)])
-        dup, of = duplicate_parts(end_xy, shapes[:, 0],
-                                  np.concatenate([s.identity for s in surveys]))
-        skipped = duplicate_skips(fid, dup, of)
-        kept = np.flatnonzero(~dup)
-        both = np.repeat(kept * 2, 2) + np.tile([0, 1], len(kept))
-        end_xy, shapes = end_xy[both], shapes[kept]
-        group = None if group is None else group[kept]
-    group, ring = with_rings(group, end_xy, shapes, config)
-    ring_rows = np.unique(grow[kept[ring]])
-    part, reverse, chain_of = chain_order(end_xy, group, config.join_tolerance_m,
-                                          config.through_junction_deg)
+    # duplicates out, untagged rings found: the step prepare takes, over all partitions
+    pieces = [s.summary for s in surveys]
+    screened = screen_summaries(PartSummary(
+        np.concatenate([p.end_xy for p in pieces]), np.concatenate([p.shapes for p in pieces]),
+        np.concatenate([p.identity for p in pieces]) if config.drop_duplicates else None,
+        np.concatenate([p.fid + (offsets[k] if s.local_fid else 0)
+                        for k, (p, s) in enumerate(zip(pieces, surveys))])), group, config)
+    kept = np.flatnonzero(~screened.dropped)
+    ring_rows = np.unique(grow[kept[screened.ring]])
+    part, reverse, chain_of = chain_order(screened.end_xy, screened.group,
+                                          config.join_tolerance_m, config.through_junction_deg)
     part = kept[part]
     first = np.r_[True, chain_of[1:] != chain_of[:-1]]
     home_of_chain = part_of[part[first]]
@@ -366,7 +351,8 @@ def _plans(surveys: list[_Survey], config: Any):
                            sources=np.unique(src_part).tolist(),
                            ring_rows=ring_rows[np.isin(ring_rows, rows)]))
     handover = [np.unique(np.concatenate(w)) if w else None for w in wanted]
-    return plans, handover, offsets, int(chain_of.max()) + 1, len(ring_rows), skipped
+    return (plans, handover, offsets, int(chain_of.max()) + 1, len(ring_rows),
+            screened.skipped)
 
 
 def _emit(messages: list, seen: set) -> None:

@@ -286,24 +286,19 @@ def prepare(frame: gpd.GeoDataFrame, config: Any) -> Chains:
         project = pyproj.Transformer.from_crs(frame.crs, crs, always_xy=True).transform
     coords, part_row, skipped = _clean_parts(np.asarray(frame.geometry.values, dtype=object),
                                              frame, config, project)
-    shapes = part_shapes(coords, np.pi * config.ring_max_diameter_m)
-    if config.drop_duplicates and part_row.size:
-        fid = frame["src_fid"].to_numpy()
-        dup, of = duplicate_parts(part_ends(coords)[2], shapes[:, 0], part_identity(coords))
-        skipped = skipped + duplicate_skips(fid[part_row], dup, of)
-        coords, part_row = drop_parts(coords, part_row, dup)
-        shapes = shapes[~dup]
     if part_row.size == 0:
         raise InputError("the input has no usable line geometries "
                          f"({len(skipped)} features skipped: {_reason_summary(skipped)})")
+    screened = screen_parts(coords, frame["src_fid"].to_numpy()[part_row],
+                            join_groups(frame, config, part_row), config)
+    skipped = skipped + screened.skipped
     if skipped:
         warnings.warn(f"{len(skipped)} input features or parts skipped: "
                       f"{_reason_summary(skipped)}", DataQualityWarning, stacklevel=2)
-    group = join_groups(frame, config, part_row)
-    group, ring = with_rings(group, part_ends(coords)[2], shapes, config)
-    chains = _join(coords, part_row, group, config.join_tolerance_m,
+    coords, part_row = drop_parts(coords, part_row, screened.dropped)
+    chains = _join(coords, part_row, screened.group, config.join_tolerance_m,
                    config.through_junction_deg)
-    chains.ring_rows = np.unique(part_row[ring])
+    chains.ring_rows = np.unique(part_row[screened.ring])
     chains.crs = crs
     chains.skipped = skipped
     chains.notes = notes
@@ -719,6 +714,71 @@ def ring_parts(end_xy: np.ndarray, shapes: np.ndarray, tolerance: float,
     is_ring = closed & (tot_len <= perimeter_max) & (area > 0) & round_enough & full_turn
     ring[x0[is_ring] >> 1] = True
     return ring
+
+
+@dataclass
+class PartSummary:
+    """What the client of a partitioned scan needs of a partition's parts to screen them
+    (:func:`screen_summaries`): per part its ends (:func:`part_ends`), shape
+    (:func:`part_shapes`), identity (:func:`part_identity`, only with ``drop_duplicates``)
+    and row's ``src_fid``."""
+
+    end_xy: np.ndarray
+    shapes: np.ndarray
+    identity: np.ndarray | None
+    fid: np.ndarray
+
+    @classmethod
+    def of(cls, parts: tuple[np.ndarray, np.ndarray], fid: np.ndarray,
+           config: Any) -> PartSummary:
+        """Summarise cleaned ``parts`` (``fid``: the src_fid of each part's row)."""
+        if not len(parts[1]):
+            return cls.empty()
+        return cls(part_ends(parts)[2], part_shapes(parts, np.pi * config.ring_max_diameter_m),
+                   part_identity(parts) if config.drop_duplicates else None, fid)
+
+    @classmethod
+    def empty(cls) -> PartSummary:
+        """The summary of no parts."""
+        return cls(np.zeros((0, 4)), np.zeros((0, 3)), np.zeros((0, 3)), np.zeros(0, np.int64))
+
+
+@dataclass
+class Screened:
+    """Result of :func:`screen_summaries`, per part in the order given."""
+
+    dropped: np.ndarray          # (n,) bool: a duplicate, skipped
+    skipped: list                # skipped-list entries for the duplicates
+    group: np.ndarray | None     # (kept,) join groups of the kept parts, rings made roundabouts
+    ring: np.ndarray             # (kept,) bool: a kept part recognised as a roundabout by shape
+    end_xy: np.ndarray           # (2 kept, 4) ends of the kept parts
+
+
+def screen_parts(parts: tuple[np.ndarray, np.ndarray], fid: np.ndarray,
+                 group: np.ndarray | None, config: Any) -> Screened:
+    """Screen cleaned parts before joining (see :func:`screen_summaries`)."""
+    return screen_summaries(PartSummary.of(parts, fid, config), group, config)
+
+
+def screen_summaries(summary: PartSummary, group: np.ndarray | None,
+                     config: Any) -> Screened:
+    """Duplicates out (:func:`duplicate_parts`, with ``drop_duplicates``), then untagged
+    roundabouts found among the parts kept (:func:`with_rings`). The same step in one
+    process (:func:`prepare`) and over all partitions on the client, so both drop the same
+    copies and find the same rings."""
+    n = len(summary.shapes)
+    end_xy, shapes = summary.end_xy, summary.shapes
+    dropped = np.zeros(n, dtype=bool)
+    skipped: list[dict] = []
+    if config.drop_duplicates and n:
+        dropped, of = duplicate_parts(end_xy, shapes[:, 0], summary.identity)
+        skipped = duplicate_skips(summary.fid, dropped, of)
+        if dropped.any():
+            end_xy = end_xy[np.repeat(~dropped, 2)]
+            shapes = shapes[~dropped]
+            group = None if group is None else group[~dropped]
+    group, ring = with_rings(group, end_xy, shapes, config)
+    return Screened(dropped, skipped, group, ring, end_xy)
 
 
 def with_rings(group: np.ndarray | None, end_xy: np.ndarray, shapes: np.ndarray,
