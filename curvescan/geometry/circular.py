@@ -30,6 +30,10 @@ from ._ragged import (expand, find, group_argmax, group_quantile, range_quantile
                       scatter_min, stops_around)
 from .circlefit import CircleFit, circle_gaps, fit_circles
 from .compound import MIN_RADIUS_RATIO, split_compound
+from .transitions import trim_transitions
+
+#: Take transition vertices off the ends of circular parts (:mod:`.transitions`).
+TRIM_TRANSITIONS = True
 
 __all__ = ["Profile", "circular_parts"]
 
@@ -413,6 +417,13 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
     parts = {k: np.concatenate([o[k] for o in out]) for k in out[0]}
     parts = split_compound(prof.coords, prof.gm, prof.sigma,
                            merge_fragments(prof, parts, tolerance_floor_m))
+    if TRIM_TRANSITIONS:
+        sig = np.maximum(prof.sigma[parts["chain"].astype(np.int64)],
+                         tolerance_floor_m / CONSENSUS_SIGMAS)
+        parts = trim_transitions(prof.coords, parts, sig, fields)
+        parts["lo"] = prof.gm[parts["i0"].astype(np.int64)]
+        parts["hi"] = prof.gm[np.maximum(parts["i1"].astype(np.int64) - 1,
+                                         parts["i0"].astype(np.int64))]
     # each part is read at the scale its own radius allows: a merged arc is flatter than its
     # fragments, each arc of a split compound curve differs from the part it came from
     ok = np.isfinite(parts["radius"]) & (parts["radius"] > 0)
