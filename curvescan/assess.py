@@ -34,8 +34,9 @@ __all__ = ["PARAMETERS", "evaluate", "hazards", "condition_order", "Assessment",
 
 _W = "assess"
 PARAMETERS: tuple[Param, ...] = (
-    Param("speed_field", "field", None,
-          "Field holding the posted speed (numbers, '50 km/h', '30 mph', OSM maxspeed).",
+    Param("speed_field", "field", "maxspeed",
+          "Field holding the posted speed (numbers, '50 km/h', '30 mph', OSM maxspeed); "
+          "the default is read where the layer has it.",
           stage="assess"),
     Param("speed_unit", "choice", "kmh", "Unit of bare numbers in the speed field.",
           choices=("kmh", "mph"), stage="assess"),

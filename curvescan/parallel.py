@@ -663,7 +663,7 @@ def _finish(source, dem, config, info: dict, merger: _Merger, layers: dict):
         "segments": merger.counts.get("segments", 0),
         "skipped_features": len(info["skipped"]),
         "skipped": info["skipped"],
-        "posted_speed": merger.speed or {"field": config.speed_field},
+        "posted_speed": merger.speed or {"field": None, "looked_for": config.speed_field},
         "notes": [info["note"], f"scanned in {info['partitions']} partitions; assessment "
                   "counts are summed over partitions, its worst lists are per partition"],
         "warnings": info["messages"],

@@ -377,8 +377,8 @@ def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, config: An
     groups, rows = curve_rows
     src = frame["src_fid"].to_numpy()
     curves.insert(1, "src_fids", src_fid_text(groups, rows, src, n))
-    report: dict[str, Any] = {"field": config.speed_field}
-    if config.speed_field is not None:
+    report: dict[str, Any] = {"field": None, "looked_for": config.speed_field}
+    if config.speed_field is not None and config.speed_field in frame.columns:
         speeds, report = parse_speeds(frame[config.speed_field], config.speed_unit,
                                       config=config)
         report["field"] = config.speed_field

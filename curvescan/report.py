@@ -17,6 +17,10 @@ def _pairs(counts: Mapping[str, Any]) -> str:
 def _speed_lines(report: Mapping[str, Any]) -> list[str]:
     lines = []
     if not report or report.get("field") is None:
+        wanted = (report or {}).get("looked_for")
+        if wanted:
+            return [f"posted speed: the layer has no field {wanted!r} (name the posted-speed "
+                    "field with --speed-field); nothing can be flagged"]
         return ["posted speed: no speed field given (--speed-field); nothing can be flagged"]
     bits = [f"{report.get('parsed', 0)} read"]
     for key, label in (("missing", "blank"), ("unparsed", "unparsable"),

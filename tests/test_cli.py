@@ -155,3 +155,24 @@ def test_flag_at_band_from_the_command_line(runner, tmp_path, demo_roads):
     res = runner.invoke(main, ["scan", str(demo_roads), "-o", str(tmp_path / "x.gpkg"),
                                "--flag-at", "worst"])
     assert res.exit_code == 2 and "--flag-at" in res.output
+
+
+def test_osm_maxspeed_field_is_read_without_naming_it(runner, roads_file, tmp_path):
+    out = tmp_path / "out.gpkg"
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(out)])
+    assert res.exit_code == 0, res.output
+    assert "posted speed field 'maxspeed'" in res.output
+    curves = pyogrio.read_dataframe(out, layer="curves")
+    assert (curves["posted_kmh"] == 100.0).all()
+
+
+def test_a_layer_without_a_speed_field_says_so(runner, tmp_path, curve_layer):
+    path = tmp_path / "nospeed.gpkg"
+    curve_layer.drop(columns="maxspeed").to_file(path)
+    out = tmp_path / "out.gpkg"
+    res = runner.invoke(main, ["scan", str(path), "-o", str(out)])
+    assert res.exit_code == 0, res.output
+    assert "the layer has no field 'maxspeed'" in res.output
+    assert "--speed-field" in res.output
+    curves = pyogrio.read_dataframe(out, layer="curves")
+    assert len(curves) == 1 and curves["posted_kmh"].isna().all()

@@ -129,6 +129,16 @@ def test_local_cluster_gives_the_single_process_curves(network, single, cluster)
     assert_same_layers(single, parted)
 
 
+def test_default_speed_field_is_read_in_every_partition(network, single, cluster):
+    # no speed field named: the layer's OSM maxspeed field is read, alike in partitions
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        parted = scan(network, partition_features=12, scheduler=cluster.scheduler_address)
+    assert parted.run["posted_speed"]["field"] == "maxspeed"
+    assert parted.run["posted_speed"]["parsed"] == single.run["posted_speed"]["parsed"] > 0
+    assert_same_layers(single, parted)
+
+
 def test_flag_at_band_partitioned_equals_single_process(network, single, cluster):
     # the band basis flags a superset of the estimate's hazards, the same in partitions
     kw = dict(speed_field="maxspeed", flag_at="band")
