@@ -362,6 +362,28 @@ def test_dense_noisy_vertices_give_no_flattened_radius(radius, deflection):
     assert np.mean(radii) == pytest.approx(radius, rel=0.016)
 
 
+def test_a_flat_arc_whose_seed_settles_on_a_flatter_circle_is_retried():
+    """On 0.5 m noise and 5-25 m vertices, a few seed vertices of a flat arc can hold the
+    consensus on a circle flatter still, too uncertain to keep (the curve was then lost).
+    Such a part is settled again from all the piece's vertices. Over 120 noise draws of
+    three flat arcs, 115 curves were found without the retry; with it all but two must be,
+    and their radii within two standard errors."""
+    found = within = 0
+    for radius, arc in ((800.0, 200.0), (1000.0, 220.0), (900.0, 170.0)):
+        al = build([Element("tangent", 300.0, 0, 0),
+                    Element("arc", arc, 1 / radius, 1 / radius, 1),
+                    Element("tangent", 300.0, 0, 0)], heading=0.2)
+        for k in range(40):
+            xy, _ = vertices(al, np.random.default_rng(k), jitter=(5.0, 25.0), noise_m=0.5)
+            c = _curves([xy]).curves
+            if len(c):
+                found += 1
+                best = c.iloc[int(np.argmin(np.abs(c["radius_m"] - radius)))]
+                within += abs(best["radius_m"] - radius) <= 2 * best["radius_se_m"]
+    assert found >= 118
+    assert within >= 0.9 * found
+
+
 @pytest.mark.parametrize("radius,deflection,spiral", [(120.0, 50.0, 60.0), (80.0, 60.0, 40.0)])
 def test_sparse_vertices_on_a_spiralled_curve_radius_within_se(radius, deflection, spiral):
     """Vertices 25-45 m apart leave a short arc two or three vertices: the radius may be

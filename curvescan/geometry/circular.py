@@ -269,6 +269,52 @@ def _settle(prof: Profile, i0: np.ndarray, i1: np.ndarray, centre: np.ndarray,
     return i0, i1, fit
 
 
+#: Retry a part too weak to keep from the whole piece (:func:`_retry_weak`).
+WEAK_RETRY = True
+#: A part whose curvature is fewer standard deviations from zero than this is retried.
+WEAK_SIGNIFICANCE = 5.0
+
+
+def _significance(prof: Profile, fit: CircleFit, chain: np.ndarray) -> np.ndarray:
+    """Curvature over its statistical standard deviation (residual or chain noise)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sd = fit.radius_sd_unit * np.maximum(fit.rmse, prof.sigma[chain])
+        return np.where(np.isfinite(fit.radius) & (sd > 0), fit.radius / sd, 0.0)
+
+
+def _retry_weak(prof: Profile, fit: CircleFit, i0: np.ndarray, i1: np.ndarray,
+                vlo: np.ndarray, vhi: np.ndarray, tol: np.ndarray, least: np.ndarray,
+                chain: np.ndarray, fields: tuple) -> None:
+    """Settle parts too weak to keep again, from all the piece's vertices (in place).
+
+    A seed whose few vertices happen to lie on a flat circle can keep the consensus on it:
+    the arc's other vertices lie off that circle by more than the tolerance, and the part
+    is then too uncertain to keep (on 0.5 m noise, 9 vertices of a 165 m arc of R 623 m
+    gave R 977 m +- 390 m). Started from every vertex of the piece instead, the circle is
+    the arc's (tangent vertices are shed afterwards). The new part replaces the old one
+    where it is more significant.
+    """
+    weak = np.flatnonzero((_significance(prof, fit, chain) < WEAK_SIGNIFICANCE)
+                          & (vhi - vlo > i1 - i0) & (vhi - vlo >= 4))
+    if len(weak) == 0:
+        return
+    centre = (vlo[weak] + vhi[weak]) // 2
+    a0, a1, afit = _settle(prof, vlo[weak], vhi[weak], centre, vlo[weak], vhi[weak],
+                           tol[weak], least[weak], fields)
+    a0, a1, afit = _tangent_ends(prof, afit, a0, a1, least[weak], prof.sigma[chain[weak]],
+                                 fields)
+    again = _fit(prof, a0, a1)
+    # only a part that grew around the weak one: elsewhere in the piece a circle from all
+    # its vertices is as often a transition's or a flat blend of two arcs
+    better = (np.isfinite(again.radius) & (a0 <= i0[weak]) & (a1 >= i1[weak])
+              & (_significance(prof, again, chain[weak])
+                 > _significance(prof, fit, chain)[weak]))
+    j = weak[better]
+    i0[j], i1[j] = a0[better], a1[better]
+    for name in fields:
+        getattr(fit, name)[j] = getattr(again, name)[better]
+
+
 def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndarray, *,
                    tolerance_floor_m: float, min_length_m: float,
                    min_deflection_rad: float) -> dict[str, np.ndarray]:
@@ -346,6 +392,8 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
         ok = np.isfinite(final.radius)
         for name in fields:
             getattr(fit, name)[ok] = getattr(final, name)[ok]
+        if WEAK_RETRY:
+            _retry_weak(prof, fit, i0, i1, vlo, vhi, tol, least, chain, fields)
         lo = prof.gm[i0]
         hi = prof.gm[np.maximum(i1 - 1, i0)]
         accept = np.isfinite(fit.radius) & (i1 - i0 >= 3)
