@@ -39,7 +39,7 @@ import shapely
 from ..errors import DataSourceError, InputError
 from .rtree import IndexBuilder
 from .vector import (NO_INDEX, WHERE_NOT_HERE, _choose_layer, _first_line, check_output_path,
-                     check_where, no_feature_left)
+                     check_where, no_feature_left, read_ogr)
 
 __all__ = ["PartitionSource", "open_partitions", "is_parquet", "GpkgAppender", "ArrowLayer",
            "ArrowSpill"]
@@ -106,9 +106,8 @@ class PartitionSource:
         if self.kind == "ogr":
             skip, count = self.ranges[i]
             try:
-                frame = pyogrio.read_dataframe(self.path, layer=self.layer, use_arrow=True,
-                                               fid_as_index=True, skip_features=skip,
-                                               max_features=count, where=self.where)
+                frame = read_ogr(self.path, layer=self.layer, skip_features=skip,
+                                 max_features=count, where=self.where)
             except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError,
                     OSError) as exc:
                 raise DataSourceError(_first_line(f"cannot read {self.path}: {exc}")) from None

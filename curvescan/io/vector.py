@@ -20,6 +20,7 @@ import pyogrio
 from pyogrio.errors import DataLayerError, DataSourceError as _PyogrioSourceError
 
 from ..errors import DataQualityWarning, DataSourceError, InputError, OutputExistsError
+from . import curved
 from .rtree import IndexBuilder
 
 __all__ = ["read_layer", "list_line_layers", "write_layers", "check_output_path", "WkbLayer"]
@@ -113,8 +114,7 @@ def read_layer(path: str | os.PathLike, /, layer: str | None = None,
         return _read_parquet(path)
     chosen = _choose_layer(path, layer)
     try:
-        frame = pyogrio.read_dataframe(path, layer=chosen, use_arrow=True, fid_as_index=True,
-                                       where=where)
+        frame = read_ogr(path, layer=chosen, where=where)
     except (_PyogrioSourceError, DataLayerError, OSError) as exc:
         if where is not None:
             check_where(path, chosen, where)
@@ -124,6 +124,33 @@ def read_layer(path: str | os.PathLike, /, layer: str | None = None,
         frame = frame.set_crs(None, allow_override=True)  # GeoPackage srs_id 0 / -1
     frame.insert(0, "src_fid", frame.index.to_numpy(dtype="int64"))
     return frame.reset_index(drop=True)
+
+
+def read_ogr(path: str, **kwargs: Any) -> gpd.GeoDataFrame:
+    """:func:`pyogrio.read_dataframe` (Arrow, FIDs as the index), curved geometries too.
+
+    Shapely reads only linear geometries; a layer holding circular arcs
+    (CircularString, CompoundCurve, MultiCurve) is read again as raw WKB and its arcs are
+    stroked into lines (:mod:`curvescan.io.curved`), with a counted warning.
+    """
+    try:
+        return pyogrio.read_dataframe(path, use_arrow=True, fid_as_index=True, **kwargs)
+    except NotImplementedError:  # "Nonlinear geometry types are not currently supported"
+        pass
+    meta, table = pyogrio.read_arrow(path, return_fids=True, **kwargs)
+    geom_name = meta["geometry_name"] or "wkb_geometry"
+    names = table.column_names
+    fid_name = names[0]  # return_fids puts the FIDs first
+    geoms, counts = curved.from_wkb(table[geom_name].to_numpy(zero_copy_only=False))
+    frame = table.drop_columns([fid_name, geom_name]).to_pandas()
+    frame.index = pd.Index(table[fid_name].to_numpy(), name=None)
+    if counts:
+        what = ", ".join(f"{n} {k}" for k, n in sorted(counts.items()))
+        warnings.warn(f"{sum(counts.values())} curved geometries ({what}) read as lines: "
+                      f"arcs stroked every {curved.ARC_STEP_DEG:g} degree of turn",
+                      DataQualityWarning, stacklevel=2)
+    return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, index=frame.index),
+                            crs=meta["crs"])
 
 
 #: Why ``--where`` is refused on a source GDAL does not read.
