@@ -105,6 +105,17 @@ def _arc(p0: np.ndarray, p1: np.ndarray, p2: np.ndarray, step_deg: float) -> np.
     return xy
 
 
+def _children(buf: bytes, pos: int, order: str, step_deg: float) -> tuple[list, int]:
+    """The member geometries of a collection (or compound) at ``pos``."""
+    (n,) = struct.unpack_from(order + "I", buf, pos)
+    pos += 4
+    parts = []
+    for _ in range(n):
+        g, pos = _parse(buf, pos, step_deg)
+        parts.append(g)
+    return parts, pos
+
+
 def _parse(buf: bytes, pos: int, step_deg: float):
     """``(shapely geometry, next position)`` of the geometry at ``pos``."""
     order, base, dim, pos = _header(buf, pos)
@@ -116,16 +127,6 @@ def _parse(buf: bytes, pos: int, step_deg: float):
         if base == 8:
             xy = stroke(xy, step_deg)
         return shapely.LineString(xy) if len(xy) else shapely.LineString(), pos
-    if base == 9:
-        (n,) = struct.unpack_from(order + "I", buf, pos)
-        pos += 4
-        pieces = []
-        for _ in range(n):
-            g, pos = _parse(buf, pos, step_deg)
-            pieces.append(shapely.get_coordinates(g))
-        xy = np.concatenate([pieces[0]] + [p[1:] for p in pieces[1:]]) if pieces else \
-            np.zeros((0, 2))
-        return shapely.LineString(xy) if len(xy) else shapely.LineString(), pos
     if base == 3:
         (n,) = struct.unpack_from(order + "I", buf, pos)
         pos += 4
@@ -134,29 +135,23 @@ def _parse(buf: bytes, pos: int, step_deg: float):
             xy, pos = _points(buf, pos, order, dim)
             rings.append(xy)
         return (shapely.Polygon(rings[0], rings[1:]) if rings else shapely.Polygon()), pos
+    if base not in (4, 5, 6, 7, 9, 10, 11, 12):
+        raise ValueError(f"WKB geometry type {base} is not read")
+    parts, pos = _children(buf, pos, order, step_deg)
+    if base == 9:  # pieces of one line, each starting where the last ended
+        xy = [shapely.get_coordinates(g) for g in parts]
+        xy = np.concatenate([xy[0]] + [p[1:] for p in xy[1:]]) if xy else np.zeros((0, 2))
+        return shapely.LineString(xy) if len(xy) else shapely.LineString(), pos
     if base == 10:
-        (n,) = struct.unpack_from(order + "I", buf, pos)
-        pos += 4
-        rings = []
-        for _ in range(n):
-            g, pos = _parse(buf, pos, step_deg)
-            rings.append(shapely.get_coordinates(g))
+        rings = [shapely.get_coordinates(g) for g in parts]
         return (shapely.Polygon(rings[0], rings[1:]) if rings else shapely.Polygon()), pos
-    if base in (4, 5, 6, 7, 11, 12):
-        (n,) = struct.unpack_from(order + "I", buf, pos)
-        pos += 4
-        parts = []
-        for _ in range(n):
-            g, pos = _parse(buf, pos, step_deg)
-            parts.append(g)
-        if base in (5, 11):
-            return shapely.MultiLineString(parts), pos
-        if base in (6, 12):
-            return shapely.MultiPolygon(parts), pos
-        if base == 4:
-            return shapely.MultiPoint(parts), pos
-        return shapely.GeometryCollection(parts), pos
-    raise ValueError(f"WKB geometry type {base} is not read")
+    if base in (5, 11):
+        return shapely.MultiLineString(parts), pos
+    if base in (6, 12):
+        return shapely.MultiPolygon(parts), pos
+    if base == 4:
+        return shapely.MultiPoint(parts), pos
+    return shapely.GeometryCollection(parts), pos
 
 
 def from_wkb(values, step_deg: float = ARC_STEP_DEG) -> tuple[np.ndarray, dict[str, int]]:
