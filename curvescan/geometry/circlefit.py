@@ -209,7 +209,7 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
         s2 = np.where(dof > 0, cost / np.maximum(dof, 1), np.nan)
         c22 = np.full(n_groups, np.nan)  # groups that were never fitted stay NaN
         if live.any():
-            c22[live] = np.linalg.pinv(JTJ[live])[:, 2, 2]
+            c22[live] = _inverse_22(JTJ[live])
         unit = np.sqrt(np.maximum(c22, 0.0))
         se = unit * np.sqrt(s2)
         rmse = np.sqrt(cost / n)
@@ -219,6 +219,22 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
         arr[bad] = np.nan
     return CircleFit(cx=cx, cy=cy, radius=np.abs(r), radius_se=se, rmse=rmse, n=n.astype(int),
                      radius_sd_unit=unit)
+
+
+def _inverse_22(M: np.ndarray) -> np.ndarray:
+    """Element (2, 2) of the inverse of each symmetric 3x3 matrix ``M`` (cofactor over
+    determinant; the pseudo-inverse where the matrix is near singular)."""
+    cof = M[:, 0, 0] * M[:, 1, 1] - M[:, 0, 1] * M[:, 1, 0]
+    det = (M[:, 0, 0] * (M[:, 1, 1] * M[:, 2, 2] - M[:, 1, 2] * M[:, 2, 1])
+           - M[:, 0, 1] * (M[:, 1, 0] * M[:, 2, 2] - M[:, 1, 2] * M[:, 2, 0])
+           + M[:, 0, 2] * (M[:, 1, 0] * M[:, 2, 1] - M[:, 1, 1] * M[:, 2, 0]))
+    norm = np.abs(M).reshape(len(M), -1).max(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        out = cof / det
+    weak = ~(np.abs(det) > 1e-9 * norm ** 3) | ~np.isfinite(out)
+    if weak.any():
+        out[weak] = np.linalg.pinv(M[weak])[:, 2, 2]
+    return out
 
 
 def _dist(X, Y, group, a, b):
