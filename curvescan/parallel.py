@@ -229,8 +229,8 @@ def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, 
             from .io.partitions import ArrowLayer
 
             t = time.perf_counter()
-            for name in list(named):
-                named[name] = ArrowLayer.from_frame(named[name])
+            for name in list(named):  # envelopes here too: the client only writes
+                named[name] = ArrowLayer.from_frame(named[name]).with_boxes()
                 if out_dir is not None:
                     named[name] = named[name].to_file(
                         os.path.join(out_dir, f"part{i:06d}.{name}.arrow"))

@@ -336,26 +336,42 @@ def test_results_handed_over_as_files_give_the_same_geopackage(tmp_path, network
     # worker processes of a local cluster write their layers to Arrow files that the
     # client maps (ranked layers stay in them as the spill, ids shifted when read); made
     # to happen here with one in-process worker, the file must equal the in-memory result
+    import pyogrio
+
     from curvescan import parallel
     from curvescan.algorithms import run_scan
     from curvescan.io import partitions
 
     monkeypatch.setattr(parallel, "RANK_CHUNK", 7)
     monkeypatch.setattr(partitions, "_in_process", lambda client: False)
-    opened = []
-    real_open = partitions.ArrowFile.open
+    from curvescan.io import rtree
+
+    opened, given = [], []
+    real_open, real_add = partitions.ArrowFile.open, rtree.IndexBuilder.add
     monkeypatch.setattr(partitions.ArrowFile, "open",
                         lambda self: opened.append(self.path) or real_open(self))
+    monkeypatch.setattr(rtree.IndexBuilder, "add", lambda self, layer, wkb, boxes=None: (
+        given.append((layer, boxes is not None)), real_add(self, layer, wkb, boxes))[1])
     kw = dict(speed_field="maxspeed", partition_features=15)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         scan(network, **kw).to_gpkg(tmp_path / "memory.gpkg")
         assert not opened
+        given.clear()
         run_scan(network, tmp_path / "files.gpkg", **kw)
     assert {p.rsplit(".", 2)[-2] for p in opened} >= {"curves", "segments", "hazards",
                                                        "winter"}
+    # envelopes for the spatial index came from the workers, ranked layers' via the spill
+    assert {layer for layer, _ in given} == {"curves", "segments", "hazards", "winter"}
+    assert all(known for _, known in given)
     got, want = _gpkg_layers(tmp_path / "files.gpkg"), _gpkg_layers(tmp_path / "memory.gpkg")
     assert list(got) == list(want)
+    for name in ("curves", "hazards"):  # the index finds every row by its own envelope
+        for row in (0, len(want[name]) // 2, len(want[name]) - 1):
+            box = tuple(want[name].geometry.iloc[row].bounds)
+            hits = pyogrio.read_dataframe(tmp_path / "files.gpkg", layer=name, bbox=box,
+                                          columns=["curve_id"])["curve_id"]
+            assert want[name]["curve_id"].iloc[row] in set(hits)
     assert len(want["hazards"]) > 2 * 7 and len(want["curves"]["curve_id"].unique()) > 30
     for name in want:
         a, b = (x[name].drop(columns=["update_time"], errors="ignore") for x in (got, want))
@@ -378,7 +394,8 @@ def test_spill_adopts_files_and_shifts_their_ids(tmp_path):
                                           (7, 5, "table"), (12, 6, "file"))):
         ids = np.arange(n, dtype=np.int32 if k == 3 else np.int64)
         layer = ArrowLayer(pa.table({"id": ids, "v": np.arange(start, start + n) * 1.5}),
-                           None, None)
+                           None, None, boxes=np.arange(start, start + n, dtype=np.float32)
+                           .repeat(4).reshape(-1, 4))
         if kind == "file":
             layer = layer.to_file(str(tmp_path / f"w{k}.arrow")).open()
             assert layer.path is not None
@@ -389,6 +406,7 @@ def test_spill_adopts_files_and_shifts_their_ids(tmp_path):
     got = spill.take(rows).table
     assert got.schema.field("id").type == pa.int64()
     assert list(zip(got["id"].to_pylist(), got["v"].to_pylist())) == [want[r] for r in rows]
+    assert spill.take(rows).boxes[:, 2].tolist() == rows.tolist()  # envelopes follow
     assert spill.take(np.array([], dtype=np.int64)).table.num_rows == 0
 
 

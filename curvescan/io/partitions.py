@@ -24,7 +24,7 @@ from __future__ import annotations
 import os
 import sqlite3
 import tempfile
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Callable, Mapping
 
@@ -205,13 +205,15 @@ class ArrowLayer:
 
     Made on the worker by :meth:`from_frame` (geometry to WKB, text columns to strings,
     the geometry type and CRS as :func:`pyogrio.write_dataframe` would decide them), so
-    that the client only renumbers ids and hands the table to GDAL.
+    that the client only renumbers ids and hands the table to GDAL. :meth:`with_boxes`
+    adds the envelopes the GeoPackage's spatial index needs, also on the worker.
     """
 
     table: pa.Table
     geometry_type: str | None
     crs: str | None
     path: str | None = None  # the Arrow IPC file that holds exactly this table, if any
+    boxes: np.ndarray | None = None  # (rows, 4) float32 envelopes for the RTree, if known
 
     @classmethod
     def from_frame(cls, frame: pd.DataFrame) -> "ArrowLayer":
@@ -235,15 +237,24 @@ class ArrowLayer:
                 table = _set_type(table, fld.name, pa.string())
         return cls(table, geometry_type, crs)
 
+    def with_boxes(self) -> "ArrowLayer":
+        """The layer with the envelopes of its geometries (:func:`rtree.index_boxes`)."""
+        if self.geometry_type is None or self.boxes is not None:
+            return self
+        from .rtree import index_boxes
+
+        return replace(self, boxes=index_boxes(self.table.column("geometry")))
+
     def to_file(self, path: str) -> "ArrowFile":
-        """Write the table to the Arrow IPC file ``path``; return its small description.
+        """Write the table to the Arrow IPC file ``path``; return its small description
+        (which carries the envelopes, if known).
 
         A worker process of a local cluster hands its result over this way: the client
         maps the file instead of receiving the table through a socket.
         """
         with pa.OSFile(path, "wb") as sink, pa.ipc.new_file(sink, self.table.schema) as w:
             w.write_table(self.table)
-        return ArrowFile(path, self.table.num_rows, self.geometry_type, self.crs)
+        return ArrowFile(path, self.table.num_rows, self.geometry_type, self.crs, self.boxes)
 
     def __len__(self) -> int:
         return self.table.num_rows
@@ -260,18 +271,19 @@ class ArrowLayer:
                 k = table.schema.get_field_index(col)
                 table = table.set_column(k, table.schema.field(k),
                                          pc.add(table[col], pa.scalar(by, table[col].type)))
-        return ArrowLayer(table, self.geometry_type, self.crs)
+        return ArrowLayer(table, self.geometry_type, self.crs, boxes=self.boxes)
 
     def replaced(self, column: str, values: np.ndarray) -> "ArrowLayer":
         """Return the layer with ``column`` (which must exist) holding ``values``."""
         k = self.table.schema.get_field_index(column)
         field = self.table.schema.field(k)
         table = self.table.set_column(k, field, pa.array(values, type=field.type))
-        return ArrowLayer(table, self.geometry_type, self.crs)
+        return ArrowLayer(table, self.geometry_type, self.crs, boxes=self.boxes)
 
     def head(self, n: int) -> "ArrowLayer":
         """The first ``n`` rows."""
-        return ArrowLayer(self.table.slice(0, n), self.geometry_type, self.crs)
+        return ArrowLayer(self.table.slice(0, n), self.geometry_type, self.crs,
+                          boxes=None if self.boxes is None else self.boxes[:n])
 
     def frame(self, columns: list[str]) -> pd.DataFrame:
         """The given columns (those present) as a plain DataFrame, no geometry.
@@ -304,12 +316,14 @@ class ArrowFile:
     n_rows: int
     geometry_type: str | None
     crs: str | None
+    boxes: np.ndarray | None = None
 
     def open(self) -> ArrowLayer:
         """The layer, memory-mapped: its rows are read from the page cache, not copied."""
         with pa.memory_map(self.path) as src:
             table = pa.ipc.open_file(src).read_all()
-        return ArrowLayer(table, self.geometry_type, self.crs, path=self.path)
+        return ArrowLayer(table, self.geometry_type, self.crs, path=self.path,
+                          boxes=self.boxes)
 
 
 def _set_type(table: pa.Table, name: str, typ: pa.DataType) -> pa.Table:
@@ -354,6 +368,7 @@ class ArrowSpill:
         self.geometry_type: str | None = None
         self.crs: str | None = None
         self.n = 0
+        self.boxes: list[np.ndarray | None] = []  # envelopes of the appended rows, in order
 
     def append(self, layer: ArrowLayer, shift: Mapping[str, int] | None = None) -> None:
         """Append the rows of ``layer`` with ``shift[c]`` added to its columns ``c``
@@ -378,6 +393,7 @@ class ArrowSpill:
                 self.sources.append((path, {}))
             self.writer.write_table(table)
         self.n += table.num_rows
+        self.boxes.append(layer.boxes)
 
     def _close(self) -> None:
         if self.writer is not None:
@@ -409,7 +425,12 @@ class ArrowSpill:
         back = np.empty_like(by_batch)
         back[by_batch] = np.arange(len(rows))
         table = table.combine_chunks().take(pa.array(back))
-        return ArrowLayer(table, self.geometry_type, self.crs)
+        boxes = None
+        if self.boxes and all(b is not None for b in self.boxes):
+            if len(self.boxes) > 1:  # once: later takes find them joined
+                self.boxes = [np.concatenate(self.boxes)]
+            boxes = self.boxes[0][rows]
+        return ArrowLayer(table, self.geometry_type, self.crs, boxes=boxes)
 
 
 def _conform(table: pa.Table, schema: pa.Schema) -> pa.Table:
@@ -489,7 +510,7 @@ class GpkgAppender:
                 if frame.geometry_type is not None:
                     if self.index is None:
                         self.index = IndexBuilder(self._folder())
-                    self.index.add(name, frame.table.column("geometry"))
+                    self.index.add(name, frame.table.column("geometry"), frame.boxes)
             else:
                 pyogrio.write_dataframe(frame if isinstance(frame, gpd.GeoDataFrame)
                                         else pd.DataFrame(frame), self.tmp, use_arrow=True,
