@@ -24,8 +24,10 @@ Only part ends (32 bytes a part) and results travel to the client; every worker 
 its own partition. Memory on a worker is bounded by the partition size; on the client by
 the part-end arrays, plus the output when an in-memory result is asked for. The command
 line streams every layer into the GeoPackage instead (:func:`scan_to_gpkg`): results come
-as Arrow tables, and the ranked layers wait on disk until they can be ranked from their
-ranking columns alone (:class:`_Streamer`), so the client keeps about 60 bytes a curve.
+as Arrow tables with their rows' envelopes (in Arrow IPC files the client maps, from the
+worker processes of a local cluster), and the ranked layers wait on disk until they can be
+ranked from their ranking columns alone (:class:`_Streamer`), so the client keeps about
+80 bytes a curve and does little more than hand rows to GDAL.
 """
 
 from __future__ import annotations
@@ -544,13 +546,15 @@ class _Merger:
 class _Streamer(_Merger):
     """Renumber ids across partitions and stream every layer into a :class:`GpkgAppender`.
 
-    Partitions arrive as Arrow tables (``scan_task(arrow=True)``). ``curves``, ``segments``
-    and unranked layers are appended as they come. Ranked layers (:data:`RANKED`) wait in
-    an :class:`ArrowSpill` on disk while the client keeps only their ranking columns (about
-    40 bytes a row); :meth:`write_ranked` then ranks those columns over all partitions and
-    writes the rows in rank order, :data:`RANK_CHUNK` at a time. Held in memory: the
-    ranking columns, ``curve_id`` and ``posted_kmh`` of every curve (for the summary) and
-    the first :data:`TOP_ROWS` rows of each ranked layer.
+    Partitions arrive as Arrow tables (``scan_task(arrow=True)``), or as Arrow IPC files
+    the workers wrote, mapped here. ``curves``, ``segments`` and unranked layers are
+    appended as they come (a worker's file is removed once written). Ranked layers
+    (:data:`RANKED`) wait in an :class:`ArrowSpill` on disk (a worker's file becomes part of
+    it) while the client keeps only their ranking columns and envelopes (about 56 bytes a
+    row); :meth:`write_ranked` then ranks those columns over all partitions and writes the
+    rows in rank order, :data:`RANK_CHUNK` at a time. Held in memory: the ranking columns
+    and envelopes, ``curve_id`` and ``posted_kmh`` of every curve (for the summary) and the
+    first :data:`TOP_ROWS` rows of each ranked layer.
     """
 
     def __init__(self, sink: Any) -> None:
@@ -583,8 +587,11 @@ class _Streamer(_Merger):
             return
         path, layer = layer.path, layer.shifted(shift)
         self.sink.append(name, layer)
-        if path is not None:  # a worker's file, written now (the mapping stays valid)
-            os.unlink(path)
+        if path is not None:  # a worker's file, written now; where a mapped file cannot
+            try:              # be removed (Windows) the folder goes at the end instead
+                os.unlink(path)
+            except OSError:
+                pass
         if name == "curves":
             self.summary.append(layer.frame(["curve_id", "posted_kmh"]))
         self._style_values(name, layer)
@@ -734,7 +741,7 @@ def scan_to_gpkg(source: Any, output: Any, *, dem: Any = None, overwrite: bool =
     GeoPackage as partitions complete; ``hazards`` and ``winter`` wait on disk until all
     partitions are in, are ranked from their ranking columns alone and written in rank
     order (see :class:`_Streamer`). Client memory is bounded by a partition's result
-    plus about 60 bytes a curve. The returned result holds the run record, ``curve_id``
+    plus about 80 bytes a curve. The returned result holds the run record, ``curve_id``
     and ``posted_kmh`` of every curve, the first :data:`TOP_ROWS` rows of ``hazards`` and
     ``winter`` (the run record has the full counts) and no ``segments`` rows.
     """
