@@ -24,8 +24,10 @@ Only part ends (32 bytes a part) and results travel to the client; every worker 
 its own partition. Memory on a worker is bounded by the partition size; on the client by
 the part-end arrays, plus the output when an in-memory result is asked for. The command
 line streams every layer into the GeoPackage instead (:func:`scan_to_gpkg`): results come
-as Arrow tables, and the ranked layers wait on disk until they can be ranked from their
-ranking columns alone (:class:`_Streamer`), so the client keeps about 60 bytes a curve.
+as Arrow tables with their rows' envelopes (in Arrow IPC files the client maps, from the
+worker processes of a local cluster), and the ranked layers wait on disk until they can be
+ranked from their ranking columns alone (:class:`_Streamer`), so the client keeps about
+80 bytes a curve and does little more than hand rows to GDAL.
 """
 
 from __future__ import annotations
@@ -172,12 +174,16 @@ class _Plan:
 
 
 def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, dem: Any,
-              plan: _Plan, handed: list, arrow: bool = False) -> dict:
+              plan: _Plan, handed: list, arrow: bool = False,
+              out_dir: str | None = None) -> dict:
     """Scan the chains homed in partition ``i`` (second pass).
 
     ``layers`` of the returned dict is ``(named layers, assessment summary)``; with
     ``arrow`` the layers are :class:`curvescan.io.partitions.ArrowLayer` tables, made here
-    so that the client neither unpickles nor encodes a geometry.
+    so that the client neither unpickles nor encodes a geometry. With ``out_dir`` too (a
+    folder the client reads: worker processes of a local cluster) each table goes into an
+    Arrow IPC file there and the layer is its :class:`~curvescan.io.partitions.ArrowFile`
+    description, so that the client maps the rows instead of receiving them.
     """
     import pandas as pd
 
@@ -225,8 +231,11 @@ def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, 
             from .io.partitions import ArrowLayer
 
             t = time.perf_counter()
-            for name in list(named):
-                named[name] = ArrowLayer.from_frame(named[name])
+            for name in list(named):  # envelopes here too: the client only writes
+                named[name] = ArrowLayer.from_frame(named[name]).with_boxes()
+                if out_dir is not None:
+                    named[name] = named[name].to_file(
+                        os.path.join(out_dir, f"part{i:06d}.{name}.arrow"))
             timings["to_arrow"] = round(time.perf_counter() - t, 4)
     return {"layers": (named, summary), "speed": speed, "terrain": terrain_record,
             "vertices": vertex_record,
@@ -363,8 +372,13 @@ def _emit(messages: list, seen: set) -> None:
 
 
 def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None,
-                   sink: Callable[[int, dict], None], arrow: bool = False) -> dict:
+                   sink: Callable[[int, dict], None], arrow: bool = False,
+                   out_dir: str | None = None) -> dict:
     """Run the four passes; hand the partitions' results to ``sink`` in partition order.
+
+    With ``arrow`` and ``out_dir``, worker processes of a local cluster (made here) hand
+    their results over as Arrow IPC files in ``out_dir`` (:func:`scan_task`); in-process
+    and remote workers send them in the result as before.
 
     Returns the parts of the run record that are known once all partitions are done.
     """
@@ -418,6 +432,11 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
                                  int(offsets[q]), rows, pure=False)
                 for q, rows in enumerate(handover) if rows is not None}
         dem_path = None if dem is None else str(dem)
+        from .io.partitions import _in_process
+
+        # a local cluster's worker processes share this file system; the client maps the
+        # files they write (no socket copy of every result row, no deserialising)
+        files = out_dir if arrow and cluster is not None and not _in_process(client) else None
         # ids are given in partition order, so results are handed to ``sink`` in that
         # order; partitions are submitted in order, and only while fewer than ``window``
         # are submitted but not yet handed on: at most that many results wait on the client
@@ -432,7 +451,7 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
                 p = submitted
                 fut = client.submit(scan_task, light, p, src.payload(p), config, crs, note,
                                     dem_path, plans[p], [hand[q] for q in plans[p].sources],
-                                    arrow, pure=False)
+                                    arrow, files, pure=False)
                 index[fut.key] = p
                 queue.add(fut)
                 submitted += 1
@@ -527,13 +546,15 @@ class _Merger:
 class _Streamer(_Merger):
     """Renumber ids across partitions and stream every layer into a :class:`GpkgAppender`.
 
-    Partitions arrive as Arrow tables (``scan_task(arrow=True)``). ``curves``, ``segments``
-    and unranked layers are appended as they come. Ranked layers (:data:`RANKED`) wait in
-    an :class:`ArrowSpill` on disk while the client keeps only their ranking columns (about
-    40 bytes a row); :meth:`write_ranked` then ranks those columns over all partitions and
-    writes the rows in rank order, :data:`RANK_CHUNK` at a time. Held in memory: the
-    ranking columns, ``curve_id`` and ``posted_kmh`` of every curve (for the summary) and
-    the first :data:`TOP_ROWS` rows of each ranked layer.
+    Partitions arrive as Arrow tables (``scan_task(arrow=True)``), or as Arrow IPC files
+    the workers wrote, mapped here. ``curves``, ``segments`` and unranked layers are
+    appended as they come (a worker's file is removed once written). Ranked layers
+    (:data:`RANKED`) wait in an :class:`ArrowSpill` on disk (a worker's file becomes part of
+    it) while the client keeps only their ranking columns and envelopes (about 56 bytes a
+    row); :meth:`write_ranked` then ranks those columns over all partitions and writes the
+    rows in rank order, :data:`RANK_CHUNK` at a time. Held in memory: the ranking columns
+    and envelopes, ``curve_id`` and ``posted_kmh`` of every curve (for the summary) and the
+    first :data:`TOP_ROWS` rows of each ranked layer.
     """
 
     def __init__(self, sink: Any) -> None:
@@ -547,18 +568,30 @@ class _Streamer(_Merger):
         self.columns: dict[str, list] = {}
         self.mildest: dict[str, set] = {}
 
+    def __call__(self, index: int, out: dict) -> None:
+        if out["layers"] is not None:  # results handed over as files: map them
+            named, summary = out["layers"]
+            out = dict(out, layers=({name: layer.open() if hasattr(layer, "open") else layer
+                                     for name, layer in named.items()}, summary))
+        super().__call__(index, out)
+
     def _layer(self, name: str, layer: Any, shift: dict[str, int]) -> None:
-        layer = layer.shifted(shift)
         if name in RANKED:
             self.empty.setdefault(name, layer.empty())
             spill = self.spills.get(name) or self.spills.setdefault(name, self.sink.spill(name))
-            keys = layer.frame(RANKED[name][1])
+            keys = layer.shifted(shift).frame(RANKED[name][1])
             keys["_row"] = np.arange(spill.n, spill.n + len(layer), dtype=np.int64)
             self.keys.setdefault(name, []).append(keys)
-            spill.append(layer)
+            spill.append(layer, shift)  # a worker's file stays where it is, as the spill
             self._style_values(name, layer)
             return
+        path, layer = layer.path, layer.shifted(shift)
         self.sink.append(name, layer)
+        if path is not None:  # a worker's file, written now; where a mapped file cannot
+            try:              # be removed (Windows) the folder goes at the end instead
+                os.unlink(path)
+            except OSError:
+                pass
         if name == "curves":
             self.summary.append(layer.frame(["curve_id", "posted_kmh"]))
         self._style_values(name, layer)
@@ -708,7 +741,7 @@ def scan_to_gpkg(source: Any, output: Any, *, dem: Any = None, overwrite: bool =
     GeoPackage as partitions complete; ``hazards`` and ``winter`` wait on disk until all
     partitions are in, are ranked from their ranking columns alone and written in rank
     order (see :class:`_Streamer`). Client memory is bounded by a partition's result
-    plus about 60 bytes a curve. The returned result holds the run record, ``curve_id``
+    plus about 80 bytes a curve. The returned result holds the run record, ``curve_id``
     and ``posted_kmh`` of every curve, the first :data:`TOP_ROWS` rows of ``hazards`` and
     ``winter`` (the run record has the full counts) and no ``segments`` rows.
     """
@@ -729,7 +762,7 @@ def scan_to_gpkg(source: Any, output: Any, *, dem: Any = None, overwrite: bool =
     report = progress or (lambda stage, frac: None)
     try:
         info = run_partitions(source, config, dem, lambda s, f: report(s, 0.9 * f), merger,
-                              arrow=True)
+                              arrow=True, out_dir=sink.folder())
         t = time.perf_counter()
         curve_columns = merger.empty.get("hazards", merger.empty.get("curves"))
         merger.write_ranked(list(curve_columns.columns) if curve_columns is not None else [],

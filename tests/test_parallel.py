@@ -341,6 +341,85 @@ def test_streamed_geopackage_equals_the_in_memory_result(tmp_path, network, sing
     assert {"survey", "partition", "writing"} <= stages
 
 
+def test_results_handed_over_as_files_give_the_same_geopackage(tmp_path, network,
+                                                                monkeypatch):
+    # worker processes of a local cluster write their layers to Arrow files that the
+    # client maps (ranked layers stay in them as the spill, ids shifted when read); made
+    # to happen here with one in-process worker, the file must equal the in-memory result
+    import pyogrio
+
+    from curvescan import parallel
+    from curvescan.algorithms import run_scan
+    from curvescan.io import partitions
+
+    monkeypatch.setattr(parallel, "RANK_CHUNK", 7)
+    monkeypatch.setattr(partitions, "_in_process", lambda client: False)
+    from curvescan.io import rtree
+
+    opened, given = [], []
+    real_open, real_add = partitions.ArrowFile.open, rtree.IndexBuilder.add
+    monkeypatch.setattr(partitions.ArrowFile, "open",
+                        lambda self: opened.append(self.path) or real_open(self))
+    monkeypatch.setattr(rtree.IndexBuilder, "add", lambda self, layer, wkb, boxes=None: (
+        given.append((layer, boxes is not None)), real_add(self, layer, wkb, boxes))[1])
+    kw = dict(speed_field="maxspeed", partition_features=15)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        scan(network, **kw).to_gpkg(tmp_path / "memory.gpkg")
+        assert not opened
+        given.clear()
+        run_scan(network, tmp_path / "files.gpkg", **kw)
+    assert {p.rsplit(".", 2)[-2] for p in opened} >= {"curves", "segments", "hazards",
+                                                       "winter"}
+    # envelopes for the spatial index came from the workers, ranked layers' via the spill
+    assert {layer for layer, _ in given} == {"curves", "segments", "hazards", "winter"}
+    assert all(known for _, known in given)
+    got, want = _gpkg_layers(tmp_path / "files.gpkg"), _gpkg_layers(tmp_path / "memory.gpkg")
+    assert list(got) == list(want)
+    for name in ("curves", "hazards"):  # the index finds every row by its own envelope
+        for row in (0, len(want[name]) // 2, len(want[name]) - 1):
+            box = tuple(want[name].geometry.iloc[row].bounds)
+            hits = pyogrio.read_dataframe(tmp_path / "files.gpkg", layer=name, bbox=box,
+                                          columns=["curve_id"])["curve_id"]
+            assert want[name]["curve_id"].iloc[row] in set(hits)
+    assert len(want["hazards"]) > 2 * 7 and len(want["curves"]["curve_id"].unique()) > 30
+    for name in want:
+        a, b = (x[name].drop(columns=["update_time"], errors="ignore") for x in (got, want))
+        pd.testing.assert_frame_equal(a, b, check_exact=True, obj=name)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["files.gpkg", "memory.gpkg"]
+
+
+def test_spill_adopts_files_and_shifts_their_ids(tmp_path):
+    # a worker's file is kept as it is and its ids shifted as rows are read; tables
+    # appended between files are copied (shifted) into files of the spill; types as the
+    # first layer's
+    import pyarrow as pa
+
+    from curvescan.io.partitions import ArrowLayer, ArrowSpill
+
+    spill = ArrowSpill(tmp_path / "spill", "x")
+    (tmp_path / "spill").mkdir()
+    want = []
+    for k, (start, n, kind) in enumerate(((0, 4, "file"), (4, 3, "table"), (7, 0, "file"),
+                                          (7, 5, "table"), (12, 6, "file"))):
+        ids = np.arange(n, dtype=np.int32 if k == 3 else np.int64)
+        layer = ArrowLayer(pa.table({"id": ids, "v": np.arange(start, start + n) * 1.5}),
+                           None, None, boxes=np.arange(start, start + n, dtype=np.float32)
+                           .repeat(4).reshape(-1, 4))
+        if kind == "file":
+            layer = layer.to_file(str(tmp_path / f"w{k}.arrow")).open()
+            assert layer.path is not None
+        spill.append(layer, {"id": 100 * k, "absent": 5})
+        want += [(100 * k + i, (start + i) * 1.5) for i in range(n)]
+    assert spill.n == len(want) == 18
+    rows = np.array([17, 0, 6, 5, 11, 3, 12, 13, 1, 4, 7])
+    got = spill.take(rows).table
+    assert got.schema.field("id").type == pa.int64()
+    assert list(zip(got["id"].to_pylist(), got["v"].to_pylist())) == [want[r] for r in rows]
+    assert spill.take(rows).boxes[:, 2].tolist() == rows.tolist()  # envelopes follow
+    assert spill.take(np.array([], dtype=np.int64)).table.num_rows == 0
+
+
 def test_spill_gives_rows_in_the_order_asked(tmp_path):
     # rows spread over several appended tables come back in any asked order
     import pyarrow as pa

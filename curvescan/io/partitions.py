@@ -24,7 +24,7 @@ from __future__ import annotations
 import os
 import sqlite3
 import tempfile
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Callable, Mapping
 
@@ -204,12 +204,15 @@ class ArrowLayer:
 
     Made on the worker by :meth:`from_frame` (geometry to WKB, text columns to strings,
     the geometry type and CRS as :func:`pyogrio.write_dataframe` would decide them), so
-    that the client only renumbers ids and hands the table to GDAL.
+    that the client only renumbers ids and hands the table to GDAL. :meth:`with_boxes`
+    adds the envelopes the GeoPackage's spatial index needs, also on the worker.
     """
 
     table: pa.Table
     geometry_type: str | None
     crs: str | None
+    path: str | None = None  # the Arrow IPC file that holds exactly this table, if any
+    boxes: np.ndarray | None = None  # (rows, 4) float32 envelopes for the RTree, if known
 
     @classmethod
     def from_frame(cls, frame: pd.DataFrame) -> "ArrowLayer":
@@ -233,6 +236,25 @@ class ArrowLayer:
                 table = _set_type(table, fld.name, pa.string())
         return cls(table, geometry_type, crs)
 
+    def with_boxes(self) -> "ArrowLayer":
+        """The layer with the envelopes of its geometries (:func:`rtree.index_boxes`)."""
+        if self.geometry_type is None or self.boxes is not None:
+            return self
+        from .rtree import index_boxes
+
+        return replace(self, boxes=index_boxes(self.table.column("geometry")))
+
+    def to_file(self, path: str) -> "ArrowFile":
+        """Write the table to the Arrow IPC file ``path``; return its small description
+        (which carries the envelopes, if known).
+
+        A worker process of a local cluster hands its result over this way: the client
+        maps the file instead of receiving the table through a socket.
+        """
+        with pa.OSFile(path, "wb") as sink, pa.ipc.new_file(sink, self.table.schema) as w:
+            w.write_table(self.table)
+        return ArrowFile(path, self.table.num_rows, self.geometry_type, self.crs, self.boxes)
+
     def __len__(self) -> int:
         return self.table.num_rows
 
@@ -248,18 +270,19 @@ class ArrowLayer:
                 k = table.schema.get_field_index(col)
                 table = table.set_column(k, table.schema.field(k),
                                          pc.add(table[col], pa.scalar(by, table[col].type)))
-        return ArrowLayer(table, self.geometry_type, self.crs)
+        return ArrowLayer(table, self.geometry_type, self.crs, boxes=self.boxes)
 
     def replaced(self, column: str, values: np.ndarray) -> "ArrowLayer":
         """Return the layer with ``column`` (which must exist) holding ``values``."""
         k = self.table.schema.get_field_index(column)
         field = self.table.schema.field(k)
         table = self.table.set_column(k, field, pa.array(values, type=field.type))
-        return ArrowLayer(table, self.geometry_type, self.crs)
+        return ArrowLayer(table, self.geometry_type, self.crs, boxes=self.boxes)
 
     def head(self, n: int) -> "ArrowLayer":
         """The first ``n`` rows."""
-        return ArrowLayer(self.table.slice(0, n), self.geometry_type, self.crs)
+        return ArrowLayer(self.table.slice(0, n), self.geometry_type, self.crs,
+                          boxes=None if self.boxes is None else self.boxes[:n])
 
     def frame(self, columns: list[str]) -> pd.DataFrame:
         """The given columns (those present) as a plain DataFrame, no geometry.
@@ -282,6 +305,24 @@ class ArrowLayer:
         geom = shapely.from_wkb(frame.pop("geometry").to_numpy(dtype=object))
         return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geom, index=frame.index,
                                                               crs=self.crs))
+
+
+@dataclass
+class ArrowFile:
+    """An :class:`ArrowLayer` written to an Arrow IPC file by :meth:`ArrowLayer.to_file`."""
+
+    path: str
+    n_rows: int
+    geometry_type: str | None
+    crs: str | None
+    boxes: np.ndarray | None = None
+
+    def open(self) -> ArrowLayer:
+        """The layer, memory-mapped: its rows are read from the page cache, not copied."""
+        with pa.memory_map(self.path) as src:
+            table = pa.ipc.open_file(src).read_all()
+        return ArrowLayer(table, self.geometry_type, self.crs, path=self.path,
+                          boxes=self.boxes)
 
 
 def _set_type(table: pa.Table, name: str, typ: pa.DataType) -> pa.Table:
@@ -309,57 +350,91 @@ def _geometry_type(values: np.ndarray) -> tuple[str, np.ndarray]:
 
 
 class ArrowSpill:
-    """The rows of one layer in an Arrow IPC file, appended by partition, read in any order.
+    """The rows of one layer in Arrow IPC files, appended by partition, read in any order.
 
     Ranked layers (``hazards``, ``winter``) are written only once every partition is in;
     until then their rows wait here on disk, and the client keeps only the ranking keys.
+    A layer that already lies in a file of its own (:meth:`ArrowFile.open`, written by a
+    worker) is adopted as it is, with the id shifts to apply when its rows are read;
+    other layers are copied into a file of the spill.
     """
 
     def __init__(self, folder: str | os.PathLike, name: str) -> None:
-        self.path = os.path.join(folder, f"{name}.arrows")
+        self.folder, self.name = os.fspath(folder), name
+        self.sources: list[tuple[str, dict[str, int]]] = []  # (file, id shifts), in order
         self.writer: Any = None
         self.schema: pa.Schema | None = None
         self.geometry_type: str | None = None
         self.crs: str | None = None
         self.n = 0
+        self.boxes: list[np.ndarray | None] = []  # envelopes of the appended rows, in order
 
-    def append(self, layer: ArrowLayer) -> None:
-        """Append the rows of ``layer`` (schema as the first layer's)."""
+    def append(self, layer: ArrowLayer, shift: Mapping[str, int] | None = None) -> None:
+        """Append the rows of ``layer`` with ``shift[c]`` added to its columns ``c``
+        (schema as the first layer's)."""
         table = layer.table
-        if self.writer is None:
+        if self.schema is None:
             self.schema, self.geometry_type, self.crs = table.schema, layer.geometry_type, \
                 layer.crs
-            self.writer = pa.ipc.new_file(self.path, self.schema)
-        elif table.schema != self.schema:
-            table = table.select(self.schema.names).cast(self.schema)
         if len(table) and not self.n:
             self.geometry_type = layer.geometry_type
         elif len(table) and layer.geometry_type != self.geometry_type:
             self.geometry_type = "Unknown"
-        self.writer.write_table(table)
+        shift = {c: by for c, by in (shift or {}).items() if by and c in table.column_names}
+        if layer.path is not None:  # the file holds the table as it is: keep it
+            self._close()
+            self.sources.append((layer.path, shift))
+        else:
+            table = _conform(ArrowLayer(table, None, None).shifted(shift).table, self.schema)
+            if self.writer is None:
+                path = os.path.join(self.folder, f"{self.name}.{len(self.sources)}.arrows")
+                self.writer = pa.ipc.new_file(path, self.schema)
+                self.sources.append((path, {}))
+            self.writer.write_table(table)
         self.n += table.num_rows
+        self.boxes.append(layer.boxes)
 
-    def take(self, rows: np.ndarray) -> ArrowLayer:
-        """Rows ``rows`` (in that order). Memory-mapped: only the rows read are loaded."""
+    def _close(self) -> None:
         if self.writer is not None:
             self.writer.close()
             self.writer = None
+
+    def take(self, rows: np.ndarray) -> ArrowLayer:
+        """Rows ``rows`` (in that order). Memory-mapped: only the rows read are loaded."""
+        self._close()
         rows = np.asarray(rows, dtype=np.int64)
-        with pa.memory_map(self.path) as src:
-            reader = pa.ipc.open_file(src)
-            # take batch by batch: a take over the whole (chunked) table would first
-            # concatenate every batch, that is copy the whole file into memory
-            sizes = [reader.get_batch(i).num_rows for i in range(reader.num_record_batches)]
-            starts = np.concatenate([[0], np.cumsum(sizes)])
-            batch = np.searchsorted(starts, rows, side="right") - 1
-            by_batch = np.argsort(batch, kind="stable")
-            pieces = [reader.get_batch(int(b)).take(pa.array(rows[sel] - starts[b]))
-                      for b, sel in _groups(batch, by_batch)]
-            table = pa.Table.from_batches(pieces, schema=reader.schema)
-            back = np.empty_like(by_batch)
-            back[by_batch] = np.arange(len(rows))
-            table = table.combine_chunks().take(pa.array(back))
-        return ArrowLayer(table, self.geometry_type, self.crs)
+        batches = []  # (record batch, id shifts of its file)
+        for path, shift in self.sources:
+            with pa.memory_map(path) as src:
+                reader = pa.ipc.open_file(src)
+                batches += [(reader.get_batch(i), shift)
+                            for i in range(reader.num_record_batches)]
+        # take batch by batch: a take over the whole (chunked) table would first
+        # concatenate every batch, that is copy every file into memory
+        starts = np.concatenate([[0], np.cumsum([b.num_rows for b, _ in batches])])
+        batch = np.searchsorted(starts, rows, side="right") - 1
+        by_batch = np.argsort(batch, kind="stable")
+        pieces = []
+        for b, sel in _groups(batch, by_batch):
+            record, shift = batches[b]
+            piece = pa.Table.from_batches([record.take(pa.array(rows[sel] - starts[b]))])
+            pieces.append(_conform(ArrowLayer(piece, None, None).shifted(shift).table,
+                                   self.schema))
+        table = (pa.concat_tables(pieces) if pieces else self.schema.empty_table())
+        back = np.empty_like(by_batch)
+        back[by_batch] = np.arange(len(rows))
+        table = table.combine_chunks().take(pa.array(back))
+        boxes = None
+        if self.boxes and all(b is not None for b in self.boxes):
+            if len(self.boxes) > 1:  # once: later takes find them joined
+                self.boxes = [np.concatenate(self.boxes)]
+            boxes = self.boxes[0][rows]
+        return ArrowLayer(table, self.geometry_type, self.crs, boxes=boxes)
+
+
+def _conform(table: pa.Table, schema: pa.Schema) -> pa.Table:
+    """``table`` with the columns and types of ``schema``."""
+    return table if table.schema == schema else table.select(schema.names).cast(schema)
 
 
 def _groups(labels: np.ndarray, order: np.ndarray):
@@ -400,6 +475,11 @@ class GpkgAppender:
                                               suffix=".spill", dir=self.target.parent)
         return self.spill_dir
 
+    def folder(self) -> str:
+        """The temporary folder next to the target (made on first use), removed by
+        :meth:`close` and :meth:`abort`: spill files, and the result files of workers."""
+        return self._folder()
+
     def spill(self, name: str) -> ArrowSpill:
         """A new spill file for layer ``name``."""
         return ArrowSpill(self._folder(), name)
@@ -429,7 +509,7 @@ class GpkgAppender:
                 if frame.geometry_type is not None:
                     if self.index is None:
                         self.index = IndexBuilder(self._folder())
-                    self.index.add(name, frame.table.column("geometry"))
+                    self.index.add(name, frame.table.column("geometry"), frame.boxes)
             else:
                 pyogrio.write_dataframe(frame if isinstance(frame, gpd.GeoDataFrame)
                                         else pd.DataFrame(frame), self.tmp, use_arrow=True,

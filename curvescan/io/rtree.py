@@ -163,9 +163,10 @@ class IndexBuilder:
         self.parts: dict[str, list] = {}
         self.rows: dict[str, int] = {}
 
-    def add(self, layer: str, wkb: Any) -> None:
-        """Record the envelopes of ``wkb`` (Arrow binary), the next rows of ``layer``."""
-        boxes = _float32_outward(wkb_envelopes(wkb))
+    def add(self, layer: str, wkb: Any, boxes: np.ndarray | None = None) -> None:
+        """Record the envelopes of ``wkb`` (Arrow binary), the next rows of ``layer``
+        (``boxes``: those envelopes as :func:`index_boxes` gives them, when known)."""
+        boxes = index_boxes(wkb) if boxes is None else boxes
         self.rows[layer] = self.rows.get(layer, 0) + len(boxes)
         if self.folder is None:
             self.parts.setdefault(layer, []).append(boxes)
@@ -187,6 +188,12 @@ class IndexBuilder:
         """Add the RTree index of every geometry table of ``path`` (see
         :func:`add_spatial_indexes`), from the recorded envelopes where they apply."""
         return add_spatial_indexes(path, known=self)
+
+
+def index_boxes(wkb: Any) -> np.ndarray:
+    """Envelopes of ``wkb`` (Arrow binary) as the index stores them: ``(n, 4)`` float32,
+    minx, maxx, miny, maxy, rounded outward."""
+    return _float32_outward(wkb_envelopes(wkb))
 
 
 def _float32_outward(boxes: np.ndarray) -> np.ndarray:
