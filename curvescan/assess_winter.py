@@ -30,13 +30,13 @@ monotone in score. The weights are declared parameters (``--winter-weight-snow``
 
 from __future__ import annotations
 
-import warnings
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from .errors import DataQualityWarning
+from .recording import warn_counted
 
 __all__ = ["winter_priority", "parse_aadt", "parse_bridge", "PART_NAMES", "WEIGHT_PARAMS"]
 
@@ -51,8 +51,10 @@ BRIDGE_YES = ("yes", "true", "1", "y", "viaduct", "aqueduct", "boardwalk", "cant
               "simple_brunnel", "culvert", "abandoned")
 
 
-def _warn(message: str) -> None:
-    warnings.warn(message, DataQualityWarning, stacklevel=4)
+def _warn(template: str, counts: dict, field_name: str, examples: Any = ()) -> None:
+    """Warn (or, with nothing to warn about, only record) ``{bad} of {n}`` values."""
+    warn_counted(template, DataQualityWarning, counts, {"field": repr(field_name)},
+                 list(examples), when=[k for k in counts if k != "n"], stacklevel=4)
 
 
 def parse_aadt(values: Any, field_name: str = "aadt") -> tuple[np.ndarray, dict]:
@@ -92,16 +94,13 @@ def parse_aadt(values: Any, field_name: str = "aadt") -> tuple[np.ndarray, dict]
         "negative": int(negative.sum()),
     }
     n = len(raw)
-    if report["text"]:
-        _warn(f"{report['text']} of {n} values of AADT field {field_name!r} are text that is "
-              f"not a number (e.g. {', '.join(list(report['text_values'])[:3])}); "
-              "exposure taken as neutral there")
-    if report["negative"]:
-        _warn(f"{report['negative']} of {n} values of AADT field {field_name!r} are negative; "
-              "exposure taken as neutral there")
-    if report["missing"]:
-        _warn(f"{report['missing']} of {n} features have no value in AADT field "
-              f"{field_name!r}; exposure taken as neutral there")
+    _warn("{text} of {n} values of AADT field {field} are text that is not a number "
+          "(e.g. {examples}); exposure taken as neutral there",
+          {"text": report["text"], "n": n}, field_name, report["text_values"])
+    _warn("{negative} of {n} values of AADT field {field} are negative; exposure taken "
+          "as neutral there", {"negative": report["negative"], "n": n}, field_name)
+    _warn("{missing} of {n} features have no value in AADT field {field}; exposure "
+          "taken as neutral there", {"missing": report["missing"], "n": n}, field_name)
     return number, report
 
 
@@ -138,13 +137,12 @@ def parse_bridge(values: Any, field_name: str = "bridge") -> tuple[np.ndarray, d
                          raw[other].astype(str).value_counts().head(20).items()},
     }
     n = len(raw)
-    if report["missing"]:
-        _warn(f"{report['missing']} of {n} features have no value in bridge field "
-              f"{field_name!r}; read as not a bridge (OSM convention)")
-    if report["other"]:
-        _warn(f"{report['other']} of {n} values of bridge field {field_name!r} are not a known "
-              f"bridge tag (e.g. {', '.join(list(report['other_values'])[:3])}); read as a "
-              "structure")
+    _warn("{missing} of {n} features have no value in bridge field {field}; read as "
+          "not a bridge (OSM convention)", {"missing": report["missing"], "n": n},
+          field_name)
+    _warn("{other} of {n} values of bridge field {field} are not a known bridge tag "
+          "(e.g. {examples}); read as a structure", {"other": report["other"], "n": n},
+          field_name, report["other_values"])
     return out, report
 
 

@@ -34,13 +34,13 @@ from __future__ import annotations
 
 import os
 import time
-import warnings
 from dataclasses import dataclass
 from typing import Any, Callable
 
 import numpy as np
 
 from .declare import Param
+from .recording import Recorded, describe, merge, record_warnings, warn_again
 
 __all__ = ["PARAMETERS", "wants_partitions", "scan_partitioned", "scan_to_gpkg"]
 
@@ -133,8 +133,7 @@ def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Surve
     from .pipeline import _check_fields
     from .prepare import PartSummary, join_groups
 
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
+    with record_warnings() as caught:
         raw = src.read(i, payload)
         local_fid = "src_fid" not in raw.columns
         frame = _load_partition(_Given(raw), 0, None, config, offset=0)
@@ -146,7 +145,7 @@ def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Surve
         group = join_groups(frame, config, part_row)
         summary = PartSummary.of(parts, frame["src_fid"].to_numpy(np.int64)[part_row], config)
     return _Survey(len(frame), local_fid, part_row, ordinal, group, summary, skipped,
-                   [(w.category, str(w.message)) for w in caught])
+                   list(caught))
 
 
 def handover_task(src: Any, i: int, payload: Any, config: Any, offset: int,
@@ -195,8 +194,7 @@ def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, 
         return {"layers": None, "speed": {}, "terrain": {}, "chains": 0, "timings": timings,
                 "messages": []}
     t0 = time.perf_counter()
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
+    with record_warnings() as caught:
         frame = _load_partition(src, i, payload, config, plan.offset)
         frame = frame.iloc[plan.own_rows].copy()
         frame["_global_row"] = plan.own_rows + plan.offset
@@ -240,7 +238,7 @@ def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, 
     return {"layers": (named, summary), "speed": speed, "terrain": terrain_record,
             "vertices": vertex_record,
             "chains": chains.n_chains, "timings": timings,
-            "messages": [(w.category, str(w.message)) for w in caught]}
+            "messages": list(caught)}
 
 
 # ----------------------------------------------------------------------------- client side
@@ -364,17 +362,14 @@ def _plans(surveys: list[_Survey], config: Any):
             screened.skipped)
 
 
-def _emit(messages: list, seen: set) -> None:
-    for category, text in messages:
-        if text not in seen:
-            seen.add(text)
-            warnings.warn(text, category, stacklevel=4)
-
-
 def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None,
                    sink: Callable[[int, dict], None], arrow: bool = False,
-                   out_dir: str | None = None) -> dict:
+                   out_dir: str | None = None,
+                   reword: Callable[[list], list] | None = None) -> dict:
     """Run the four passes; hand the partitions' results to ``sink`` in partition order.
+
+    The partitions' warnings are merged (:func:`~curvescan.recording.merge`), then passed
+    through ``reword`` (e.g. :meth:`_Merger.layer_warnings`) before they are raised again.
 
     With ``arrow`` and ``out_dir``, worker processes of a local cluster (made here) hand
     their results over as Arrow IPC files in ``out_dir`` (:func:`scan_task`); in-process
@@ -391,7 +386,8 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
     report = progress or (lambda stage, frac: None)
     size = config.partition_features or DEFAULT_PARTITION_FEATURES
     timings: dict[str, float] = {}
-    seen: set[str] = set()
+    recorded: list[Recorded] = []   # the run record's warnings, merged over partitions
+    scan_messages: list[Recorded] = []
     t0 = time.perf_counter()
     client, cluster = _client(config)
     try:
@@ -412,8 +408,8 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
         starts = np.concatenate([[0], np.cumsum(n_rows)])
         skipped = [dict(s, src_fid=s["src_fid"] + int(starts[k])) if sv.local_fid else s
                    for k, sv in enumerate(surveys) for s in sv.skipped]
-        for sv in surveys:
-            _emit(sv.messages, seen)
+        recorded = merge([m for sv in surveys for m in sv.messages])
+        warn_again(recorded, stacklevel=3)
         t = time.perf_counter()
         planned = _plans(surveys, config)
         if planned is None:
@@ -422,8 +418,10 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
         plans, handover, offsets, n_chains, n_ring_rows, duplicates = planned
         skipped = skipped + duplicates
         if skipped:
-            warnings.warn(f"{len(skipped)} input features or parts skipped: "
-                          f"{_reason_summary(skipped)}", DataQualityWarning, stacklevel=3)
+            recorded.append(Recorded(DataQualityWarning,
+                                     f"{len(skipped)} input features or parts skipped: "
+                                     f"{_reason_summary(skipped)}"))
+            warn_again(recorded[-1:], stacklevel=3)
         n_rows = int(offsets[-1])
         del surveys
         timings["join"] = round(time.perf_counter() - t, 4)
@@ -460,7 +458,7 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
         for k, fut in enumerate(queue, 1):
             out = fut.result()
             fut.release()
-            _emit(out["messages"], seen)
+            scan_messages += out["messages"]
             for name, v in out["timings"].items():
                 part_timings[name] = round(part_timings.get(name, 0.0) + v, 4)
             pending[index.pop(fut.key)] = out
@@ -470,6 +468,11 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
             report(f"partition {k}/{src.n}", 0.2 + 0.8 * k / src.n)
             top_up()
         timings["scan"] = round(time.perf_counter() - t, 4)
+        scan_messages = merge(scan_messages)  # once for the layer, counts added up
+        if reword is not None:
+            scan_messages = reword(scan_messages)
+        warn_again(scan_messages, stacklevel=3)
+        recorded += scan_messages
     finally:
         client.close()
         if cluster is not None:
@@ -478,7 +481,7 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
     return {"crs": crs, "note": note, "input_crs": src.crs, "n_rows": n_rows,
             "chains": n_chains, "ring_rows": n_ring_rows, "skipped": skipped,
             "partitions": src.n,
-            "timings": timings, "task_timings": part_timings, "messages": sorted(seen)}
+            "timings": timings, "task_timings": part_timings, "messages": describe(recorded)}
 
 
 #: Layers ranked over all partitions: rank column and the columns that decide the order
@@ -522,10 +525,25 @@ class _Merger:
         self.next["curve_id"] += len(named["curves"])
         self.next["segment_id"] += len(named["segments"])
         self.next["chain_id"] += out["chains"]
-        _merge_report(self.speed, out["speed"])
+        _merge_speed(self.speed, out["speed"])
         _merge_report(self.assessment, summary)
         self.terrain = out["terrain"] or self.terrain
         _merge_report(self.vertices, out["vertices"])
+
+    def layer_warnings(self, recorded: list[Recorded]) -> list[Recorded]:
+        """``recorded`` with the warnings that hold for the whole layer worded for it.
+
+        Whether the posted-speed field mixes units is a property of the layer: a partition
+        that holds only bare numbers does not see the mph values of another. The
+        partitions' own mixed-units warnings are replaced by the layer's, placed where the
+        first of them was.
+        """
+        from .speeds import MIXED_UNITS, mixed_units_warning
+
+        layer = mixed_units_warning(self.speed) if "units" in self.speed else None
+        at = next((k for k, r in enumerate(recorded) if r.template == MIXED_UNITS), 0)
+        kept = [r for r in recorded if r.template != MIXED_UNITS]
+        return kept[:at] + ([layer] if layer is not None else []) + kept[at:]
 
     def _layer(self, name: str, layer: Any, shift: dict[str, int]) -> None:
         cols = {c: layer[c] + by for c, by in shift.items()}
@@ -663,6 +681,31 @@ def _merge_report(total: dict, part: dict) -> None:
             total[key] = (total[key] + value)[:10]
 
 
+#: posted-speed report values that are the same in every partition: kept, not added up
+_SPEED_FIXED = ("field", "looked_for", "max_kmh", "no_limit_kmh", "bare_unit",
+                "implicit_table")
+
+
+def _merge_speed(total: dict, part: dict) -> None:
+    """Fold one partition's posted-speed report into ``total`` (see :func:`_merge_report`);
+    settings are kept, ``mixed_units`` is decided again on the summed unit counts."""
+    if not part:
+        return
+    fixed = {k: total.get(k, part.get(k)) for k in _SPEED_FIXED if k in total or k in part}
+    examples = sorted(set(total.get("unparsed_examples", []))
+                      | set(part.get("unparsed_examples", [])))[:10]
+    _merge_report(total, {k: v for k, v in part.items()
+                          if k not in _SPEED_FIXED and k not in ("mixed_units",
+                                                                 "unparsed_examples")})
+    total.update(fixed)
+    if "unparsed_examples" in part or "unparsed_examples" in total:
+        total["unparsed_examples"] = examples
+    if "units" in total and "bare_unit" in total:
+        from .speeds import mixes_units
+
+        total["mixed_units"] = mixes_units(total["units"], total["bare_unit"])
+
+
 def _finish(source, dem, config, info: dict, merger: _Merger, layers: dict):
     import geopandas as gpd
     import pandas as pd
@@ -729,7 +772,8 @@ def scan_partitioned(source: Any, *, dem: Any = None, progress: Progress | None 
     ``partition_features`` is given, or the source is a GeoParquet folder.
     """
     merger = _Merger()
-    info = run_partitions(source, config, dem, progress, merger)
+    info = run_partitions(source, config, dem, progress, merger,
+                          reword=merger.layer_warnings)
     return _finish(source, dem, config, info, merger, merger.layers(info["input_crs"], config))
 
 
@@ -762,7 +806,8 @@ def scan_to_gpkg(source: Any, output: Any, *, dem: Any = None, overwrite: bool =
     report = progress or (lambda stage, frac: None)
     try:
         info = run_partitions(source, config, dem, lambda s, f: report(s, 0.9 * f), merger,
-                              arrow=True, out_dir=sink.folder())
+                              arrow=True, out_dir=sink.folder(),
+                              reword=merger.layer_warnings)
         t = time.perf_counter()
         curve_columns = merger.empty.get("hazards", merger.empty.get("curves"))
         merger.write_ranked(list(curve_columns.columns) if curve_columns is not None else [],

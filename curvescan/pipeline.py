@@ -10,7 +10,6 @@ import ctypes
 import logging
 import os
 import time
-import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
@@ -40,6 +39,7 @@ from .geometry.resample import global_measure, interpolate
 from .io.vector import WkbLayer
 from .prepare import point_scale, prepare, roundabout_rows
 from .read import load
+from .recording import describe, merge, record_warnings, warn_again, warn_counted
 from .speeds import parse_speeds
 
 __all__ = ["scan", "ScanResult"]
@@ -187,8 +187,7 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
     report = progress or (lambda stage, frac: None)
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
+    with record_warnings() as caught:
         frame = _timed(timings, "read", lambda: load(source, config))
         report("read", 0.1)
         _check_fields(frame, config)
@@ -198,10 +197,9 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
         report("prepare", 0.25)
         layers, speed_report, terrain_record, vertex_record = scan_chains(
             frame, chains, config, dem, report, timings, wkb=True)
-    messages = []
-    for w in caught:
-        messages.append(f"{w.category.__name__}: {w.message}")
-        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    caught = merge(caught)
+    messages = describe(caught)
+    warn_again(caught)
     timings["total"] = time.perf_counter() - t0
     curves_l, segments_l, hazards_l, extra_l, assess_summary = layers
     run = _run_record(source, dem, config, chains, frame, curves_l.table, hazards_l.table,
@@ -383,10 +381,10 @@ def _attach_attributes(curves: pd.DataFrame, frame: gpd.GeoDataFrame, config: An
                                       config=config)
         report["field"] = config.speed_field
         if report["unparsed"]:
-            warnings.warn(
-                f"{report['unparsed']} posted-speed values in {config.speed_field!r} could not "
-                f"be parsed (kept as unknown), e.g. {', '.join(report['unparsed_examples'][:3])}",
-                DataQualityWarning, stacklevel=3)
+            warn_counted("{unparsed} posted-speed values in {field} could not be parsed (kept "
+                         "as unknown), e.g. {examples}", DataQualityWarning,
+                         {"unparsed": report["unparsed"]}, {"field": repr(config.speed_field)},
+                         report["unparsed_examples"], stacklevel=3)
         curves["posted_kmh"] = reduce_rows(groups, rows, speeds, n, how="max")
     else:
         curves["posted_kmh"] = np.nan

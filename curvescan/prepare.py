@@ -33,6 +33,7 @@ from scipy.spatial import cKDTree
 from .declare import Param
 from .errors import CRSError, DataQualityWarning, InputError
 from .geometry import _kernels as kn
+from .recording import warn_counted
 from .read import parse_crs
 
 __all__ = ["PARAMETERS", "Chains", "prepare", "working_crs", "point_scale"]
@@ -405,10 +406,11 @@ def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any,
     finite = np.isfinite(x) & np.isfinite(y)
     n_finite = np.bincount(vidx[finite], minlength=len(part_row))
     if not finite.all():
-        warnings.warn(f"{int(np.count_nonzero(~finite))} vertices with non-finite coordinates "
-                      "(NaN or infinite, or beyond the range of the working CRS) removed "
-                      f"from {len(np.unique(part_row[vidx[~finite]]))} features",
-                      DataQualityWarning, stacklevel=3)
+        warn_counted("{vertices} vertices with non-finite coordinates (NaN or infinite, or "
+                     "beyond the range of the working CRS) removed from {features} features",
+                     DataQualityWarning, {"vertices": int(np.count_nonzero(~finite)),
+                                          "features": len(np.unique(part_row[vidx[~finite]]))},
+                     stacklevel=3)
     # drop repeated vertices (and non-finite ones)
     drop = ~finite
     drop[1:] |= ((vidx[1:] == vidx[:-1]) & (np.abs(x[1:] - x[:-1]) < 1e-6)

@@ -24,7 +24,6 @@ no row is dropped.
 from __future__ import annotations
 
 import tomllib
-import warnings
 from functools import lru_cache
 from pathlib import Path
 from typing import Any, Mapping
@@ -33,6 +32,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import ConfigError, DataQualityWarning
+from .recording import counted, warn_again, warn_counted
 
 __all__ = ["parse_speeds", "load_speed_table", "MPH_TO_KMH", "KNOT_TO_KMH"]
 
@@ -209,11 +209,7 @@ def parse_speeds(values: pd.Series | np.ndarray, unit: str = "kmh", *, config: A
     kind[absurd] = "absurd"
     unparsed = kind == "unparsed"
     units = {k: int(np.sum(kind == k)) for k in ("bare", "kmh", "mph", "knots")}
-    bare_in = unit
-    explicit_other = units["mph"] if bare_in == "kmh" else units["kmh"]
-    mixed = bool((units["bare"] and explicit_other)
-                 or (units["kmh"] and units["mph"]) or (units["knots"] and sum(units.values())
-                                                        > units["knots"]))
+    mixed = mixes_units(units, unit)
     report: dict[str, Any] = {
         "parsed": int(np.isfinite(out).sum()),
         "missing": int(missing.sum()),
@@ -238,21 +234,43 @@ def parse_speeds(values: pd.Series | np.ndarray, unit: str = "kmh", *, config: A
     return out, report
 
 
+#: the warning for a field that mixes units; a partitioned scan words it once for the layer
+MIXED_UNITS = ("posted-speed field mixes units: {kmh} in km/h, {mph} in mph, {knots} in "
+               "knots, {bare} bare numbers read as {bare_unit}; check --speed-unit")
+
+
+def mixes_units(units: Mapping[str, int], bare_unit: str) -> bool:
+    """Whether counts of values by unit (``bare``, ``kmh``, ``mph``, ``knots``) mix units.
+
+    Bare numbers mix with values given explicitly in another unit than ``bare_unit``.
+    """
+    explicit_other = units["mph"] if bare_unit == "kmh" else units["kmh"]
+    return bool((units["bare"] and explicit_other) or (units["kmh"] and units["mph"])
+                or (units["knots"] and sum(units.values()) > units["knots"]))
+
+
+def mixed_units_warning(report: Mapping[str, Any]):
+    """The mixed-units warning of a parse report, as :class:`~curvescan.recording.Recorded`,
+    or None when the report's units do not mix."""
+    if not mixes_units(report["units"], report["bare_unit"]):
+        return None
+    u = report["units"]
+    return counted(MIXED_UNITS, DataQualityWarning,
+                   {k: u[k] for k in ("kmh", "mph", "knots", "bare")},
+                   {"bare_unit": report["bare_unit"]})
+
+
 def _warn_report(report: Mapping[str, Any]) -> None:
     """Emit one DataQualityWarning per problem kind found in a parse report."""
     if report["absurd"]:
-        shown = ", ".join(list(report["absurd_values"])[:3])
-        warnings.warn(
-            f"{report['absurd']} posted-speed values are zero, negative or above "
-            f"{report['max_kmh']:.0f} km/h (e.g. {shown}); kept as unknown",
-            DataQualityWarning, stacklevel=3)
-    if report["mixed_units"]:
-        u = report["units"]
-        warnings.warn(
-            f"posted-speed field mixes units: {u['kmh']} in km/h, {u['mph']} in mph, "
-            f"{u['knots']} in knots, {u['bare']} bare numbers read as {report['bare_unit']}; "
-            "check --speed-unit", DataQualityWarning, stacklevel=3)
+        warn_counted("{absurd} posted-speed values are zero, negative or above {max_kmh} "
+                     "km/h (e.g. {examples}); kept as unknown", DataQualityWarning,
+                     {"absurd": report["absurd"]}, {"max_kmh": f"{report['max_kmh']:.0f}"},
+                     list(report["absurd_values"]), stacklevel=3)
+    mixed = mixed_units_warning(report)
+    if mixed is not None:
+        warn_again([mixed], stacklevel=3)
     if report["multiple"]:
-        warnings.warn(
-            f"{report['multiple']} posted-speed values list several speeds (a;b); the "
-            "highest is used", DataQualityWarning, stacklevel=3)
+        warn_counted("{multiple} posted-speed values list several speeds (a;b); the highest "
+                     "is used", DataQualityWarning, {"multiple": report["multiple"]},
+                     stacklevel=3)

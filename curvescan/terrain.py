@@ -14,7 +14,6 @@ NaN without a DEM. See ``docs/terrain.md`` for methods, quality words and error 
 
 from __future__ import annotations
 
-import warnings
 from typing import Any
 
 import numpy as np
@@ -23,6 +22,7 @@ import pandas as pd
 from .declare import Param
 from .errors import AssumptionWarning, CRSError, DataQualityWarning, InputError
 from .geometry.stations import Stations
+from .recording import warn_counted
 from .terrain_attr import assume_superelevation, parse_number, parse_superelevation
 from .terrain_fit import (
     ChainIndex,
@@ -132,8 +132,9 @@ def _lanes_and_width(curves: pd.DataFrame, config: Any) -> tuple[np.ndarray, np.
         lanes = np.where(good, v, lanes)
         nbad = int((bad | (np.isfinite(v) & ~good)).sum())
         if nbad:
-            warnings.warn(f"lanes field: {nbad} unusable value(s) ignored (default "
-                          f"{config.lanes} lanes used)", DataQualityWarning, stacklevel=3)
+            warn_counted("lanes field: {bad} unusable value(s) ignored (default {lanes} lanes "
+                         "used)", DataQualityWarning, {"bad": nbad}, {"lanes": config.lanes},
+                         stacklevel=3)
     width = lanes * config.lane_width_m
     if "attr_width_m" in curves.columns:
         v, _, bad = parse_number(curves["attr_width_m"])
@@ -142,8 +143,9 @@ def _lanes_and_width(curves: pd.DataFrame, config: Any) -> tuple[np.ndarray, np.
         width = np.where(good, v, width)
         nbad = int((bad | (np.isfinite(v) & ~good)).sum())
         if nbad:
-            warnings.warn(f"width field: {nbad} value(s) unreadable or outside 2-6 m per lane "
-                          "ignored (lane width default used)", DataQualityWarning, stacklevel=3)
+            warn_counted("width field: {bad} value(s) unreadable or outside 2-6 m per lane "
+                         "ignored (lane width default used)", DataQualityWarning, {"bad": nbad},
+                         stacklevel=3)
     return lanes.astype(np.int64), width
 
 
@@ -261,14 +263,13 @@ def evaluate(
     record["counts"] = counts
     record["quality"] = {str(k): int(v) for k, v in zip(*np.unique(quality.astype(str),
                                                                      return_counts=True))}
-    if counts["assumed"]:
-        what = {"crown": f"normal crown, outer lane -{config.crown_slope:.3f}",
-                "design": f"design method 1, e_max {config.superelevation_max:.2f}",
-                "zero": "flat cross-section",
-                "value": f"{config.superelevation_assumed}"}[mode]
-        warnings.warn(f"superelevation assumed ({what}) for {counts['assumed']} of {n} "
-                      "curve(s); see superelevation_assumption", AssumptionWarning,
-                      stacklevel=2)
+    what = {"crown": f"normal crown, outer lane -{config.crown_slope:.3f}",
+            "design": f"design method 1, e_max {config.superelevation_max:.2f}",
+            "zero": "flat cross-section",
+            "value": f"{config.superelevation_assumed}"}[mode]
+    warn_counted("superelevation assumed ({what}) for {assumed} of {n} curve(s); see "
+                 "superelevation_assumption", AssumptionWarning,
+                 {"assumed": counts["assumed"], "n": n}, {"what": what}, when=["assumed"])
     return out
 
 
@@ -378,24 +379,26 @@ def _measure(
     bad_counts = {q: int((quality == q).sum()) for q in
                   ("outside", "nodata", "partial", "coarse", "noisy", "implausible")}
     if bad_counts["outside"] or bad_counts["nodata"]:
-        warnings.warn(f"DEM gives no usable cross-sections for {bad_counts['outside']} curve(s) "
-                      f"outside it and {bad_counts['nodata']} on nodata; superelevation assumed "
-                      "there (grade kept where the centreline has samples)",
-                      DataQualityWarning, stacklevel=3)
+        warn_counted("DEM gives no usable cross-sections for {outside} curve(s) outside it and "
+                     "{nodata} on nodata; superelevation assumed there (grade kept where the "
+                     "centreline has samples)", DataQualityWarning,
+                     {k: bad_counts[k] for k in ("outside", "nodata")}, stacklevel=3)
     if bad_counts["partial"]:
-        warnings.warn(f"DEM nodata holes or edges in the cross-sections of "
-                      f"{bad_counts['partial']} curve(s); fitted from the remaining samples",
-                      DataQualityWarning, stacklevel=3)
+        warn_counted("DEM nodata holes or edges in the cross-sections of {partial} curve(s); "
+                     "fitted from the remaining samples", DataQualityWarning,
+                     {"partial": bad_counts["partial"]}, stacklevel=3)
     if bad_counts["coarse"]:
-        warnings.warn(f"DEM cells of {info.cell_m:.2f} m cannot resolve lane cross-slope "
-                      f"(needs {config.dem_min_cells_per_lane:g} cells per lane) for "
-                      f"{bad_counts['coarse']} curve(s); superelevation assumed, grade from "
-                      "the DEM", DataQualityWarning, stacklevel=3)
+        warn_counted("DEM cells of {cell} m cannot resolve lane cross-slope (needs {cells} "
+                     "cells per lane) for {coarse} curve(s); superelevation assumed, grade "
+                     "from the DEM", DataQualityWarning, {"coarse": bad_counts["coarse"]},
+                     {"cell": f"{info.cell_m:.2f}", "cells": f"{config.dem_min_cells_per_lane:g}"},
+                     stacklevel=3)
     if bad_counts["noisy"] or bad_counts["implausible"]:
-        warnings.warn(f"DEM cross-sections too rough (residual > {config.dem_max_residual_m} m) "
-                      f"for {bad_counts['noisy']} curve(s) and implausible (|e| > 0.2) for "
-                      f"{bad_counts['implausible']}; superelevation assumed there",
-                      DataQualityWarning, stacklevel=3)
+        warn_counted("DEM cross-sections too rough (residual > {residual} m) for {noisy} "
+                     "curve(s) and implausible (|e| > 0.2) for {implausible}; superelevation "
+                     "assumed there", DataQualityWarning,
+                     {k: bad_counts[k] for k in ("noisy", "implausible")},
+                     {"residual": config.dem_max_residual_m}, stacklevel=3)
     return {
         "quality": quality, "e_gov": e_gov, "e_gov_se": e_gov_se, "e_inner": e_inner,
         "e_outer": e_outer, "grade": grade, "grade_se": grade_se,

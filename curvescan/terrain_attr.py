@@ -6,12 +6,12 @@ Pure functions over arrays; used by :mod:`curvescan.terrain`.
 from __future__ import annotations
 
 import re
-import warnings
 from typing import Any
 
 import numpy as np
 
 from .errors import AssumptionWarning, DataQualityWarning
+from .recording import warn_counted
 
 __all__ = [
     "MAX_PLAUSIBLE_SUPERELEVATION",
@@ -115,23 +115,21 @@ def parse_superelevation(values: Any, unit: str = "auto") -> np.ndarray:
         bare_pct = bool(mags.size and mags.max() > MAX_PLAUSIBLE_SUPERELEVATION)
         small = int(((mags > 0) & (mags < 1)).sum()) if bare_pct else 0
         if small:
-            warnings.warn(
-                f"superelevation field read as percent (values above "
-                f"{MAX_PLAUSIBLE_SUPERELEVATION}), but {small} bare value(s) below 1 look like "
-                "fractions; they were read as percent too. Set the superelevation unit "
-                "explicitly or write values with '%'",
-                AssumptionWarning,
+            warn_counted(
+                "superelevation field read as percent (values above {limit}), but {small} bare "
+                "value(s) below 1 look like fractions; they were read as percent too. Set the "
+                "superelevation unit explicitly or write values with '%'",
+                AssumptionWarning, {"small": small}, {"limit": MAX_PLAUSIBLE_SUPERELEVATION},
                 stacklevel=3,
             )
     e = np.where(percent | (bare & bare_pct), number / 100.0, number)
     implausible = np.isfinite(e) & (np.abs(e) > MAX_PLAUSIBLE_SUPERELEVATION)
     if implausible.any() or bad.any():
-        warnings.warn(
-            f"superelevation field: {int(bad.sum())} unreadable value(s) and "
-            f"{int(implausible.sum())} value(s) beyond ±{MAX_PLAUSIBLE_SUPERELEVATION:.2f} "
-            "were ignored (terrain or the assumption used there instead)",
-            DataQualityWarning,
-            stacklevel=3,
+        warn_counted(
+            "superelevation field: {bad} unreadable value(s) and {implausible} value(s) beyond "
+            "±{limit} were ignored (terrain or the assumption used there instead)",
+            DataQualityWarning, {"bad": int(bad.sum()), "implausible": int(implausible.sum())},
+            {"limit": f"{MAX_PLAUSIBLE_SUPERELEVATION:.2f}"}, stacklevel=3,
         )
     return np.where(implausible, np.nan, e)
 
@@ -221,11 +219,9 @@ def assume_superelevation(
         banked = known & (e_d >= crown)
         inner[banked] = outer[banked] = e_d[banked]
         applied[known] = "design"
-        if (~known).any():
-            warnings.warn(
-                f"design superelevation needs the posted speed: unknown for "
-                f"{int((~known).sum())} of {n} curve(s), normal crown assumed there",
-                AssumptionWarning,
-                stacklevel=3,
-            )
+        warn_counted(
+            "design superelevation needs the posted speed: unknown for {unknown} of {n} "
+            "curve(s), normal crown assumed there", AssumptionWarning,
+            {"unknown": int((~known).sum()), "n": n}, when=["unknown"], stacklevel=3,
+        )
     return inner, outer, applied

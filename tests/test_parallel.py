@@ -450,3 +450,32 @@ def test_two_worker_processes_give_the_single_process_curves(network, single):
         warnings.simplefilter("ignore")
         parted = scan(network, speed_field="maxspeed", workers=2, partition_features=20)
     assert_same_layers(single, parted)
+
+
+def test_partitioned_warnings_are_the_single_process_warnings(cluster):
+    # Counted warnings are added up over the partitions and worded once for the layer;
+    # the mixed-units check is made on the whole layer (the mph values sit in rows of a
+    # few partitions only, so most partitions alone hold bare numbers only).
+    # An AADT field empty in one row warns "1 of 88 features": the partitions without an
+    # empty value must count in the total too.
+    net = _network()
+    net.loc[net.index[:5], "maxspeed"] = "fast"
+    mph = net["maxspeed"].eq("60 mph").to_numpy()
+    net.loc[mph & (np.arange(len(net)) > 30), "maxspeed"] = "60"
+    net["aadt"] = 1000.0
+    net.loc[net.index[40], "aadt"] = np.nan
+    kw = {"speed_field": "maxspeed", "aadt_field": "aadt"}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        one = scan(net, **kw)
+        runs = [scan(net, partition_features=12, scheduler=cluster.scheduler_address, **kw)
+                for _ in range(2)]
+    lines = one.run["warnings"]
+    assert any("5 posted-speed values in 'maxspeed' could not be parsed" in w for w in lines)
+    assert any("mixes units" in w for w in lines)
+    assert any(w.startswith("AssumptionWarning: superelevation assumed") for w in lines)
+    assert f"1 of {len(net)} features have no value in AADT field 'aadt'" in "".join(lines)
+    for parted in runs:
+        assert parted.run["timings_s"]["partitions"] >= 6
+        assert sorted(parted.run["warnings"]) == sorted(lines)
+        assert parted.run["posted_speed"] == one.run["posted_speed"]

@@ -9,7 +9,6 @@ from __future__ import annotations
 import logging
 import sys
 import textwrap
-import warnings
 from typing import Any
 
 import click
@@ -18,6 +17,7 @@ from .._version import __version__
 from ..algorithms import SCAN
 from ..cautions import CAUTION
 from ..errors import CurvescanError, CurvescanWarning
+from ..recording import record_warnings
 from .options import given, output_opt, overwrite_opt, param_options
 
 EPILOG = "CAUTION: " + CAUTION
@@ -66,12 +66,12 @@ def main(ctx: click.Context, verbose: int, quiet: int) -> None:
 def run_guarded(ctx: click.Context, fn, *args: Any, **kwargs: Any) -> Any:
     """Run ``fn``; turn curvescan errors into one-line click errors (exit 1).
 
-    Warnings are printed as one line each (``warning: ...``) unless ``-q``.
+    curvescan's warnings are printed as one line each (``warning: ...``) unless ``-q``;
+    other libraries' warnings only with ``-v``.
     """
     verbose = ctx.obj.get("verbose", 0) if ctx.obj else 0
     quiet = ctx.obj.get("quiet", 0) if ctx.obj else 0
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", CurvescanWarning)
+    with record_warnings() as caught:
         try:
             result = fn(*args, **kwargs)
         except CurvescanError as exc:
@@ -84,9 +84,11 @@ def run_guarded(ctx: click.Context, fn, *args: Any, **kwargs: Any) -> Any:
             if not quiet:
                 seen = set()
                 for w in caught:
-                    if issubclass(w.category, CurvescanWarning) and str(w.message) not in seen:
-                        seen.add(str(w.message))
-                        click.echo(f"warning: {w.message}", err=True)
+                    ours = issubclass(w.category, CurvescanWarning)
+                    if (ours or verbose) and w.shown and w.text not in seen:
+                        seen.add(w.text)
+                        click.echo(f"warning: {w.text}" if ours else
+                                   f"warning ({w.category.__name__}): {w.text}", err=True)
     return result
 
 

@@ -14,7 +14,7 @@ import click
 from ..declare import Param
 from ..errors import CurvescanError
 
-__all__ = ["param_options", "output_opt", "overwrite_opt", "verbosity_opts"]
+__all__ = ["param_options", "output_opt", "overwrite_opt"]
 
 
 def _callback(param: Param) -> Callable[[click.Context, click.Parameter, Any], Any]:

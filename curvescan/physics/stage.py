@@ -10,7 +10,6 @@ listed in ``docs/physics.md``.
 
 from __future__ import annotations
 
-import warnings
 from typing import Any
 
 import numpy as np
@@ -19,6 +18,7 @@ from numpy.typing import NDArray
 
 from ..declare import Param
 from ..errors import DataQualityWarning, InputError
+from ..recording import warn_counted
 from . import limits
 from .limits import KMH_PER_MS
 from .presets import Presets, load_presets
@@ -79,8 +79,10 @@ def output_columns(condition_names: list[str] | tuple[str, ...]) -> list[str]:
     ]
 
 
-def _warn(message: str) -> None:
-    warnings.warn(message, DataQualityWarning, stacklevel=4)
+def _warn(template: str, counts: dict, fixed: dict | None = None) -> None:
+    """Warn (or, with nothing to warn about, only record) ``{bad} of {n}`` curves."""
+    warn_counted(template, DataQualityWarning, counts, fixed,
+                 when=[k for k in counts if k != "n"], stacklevel=4)
 
 
 def _curve_arrays(curves: pd.DataFrame, config: Any) -> dict[str, NDArray[np.float64]]:
@@ -108,19 +110,20 @@ def _curve_arrays(curves: pd.DataFrame, config: Any) -> dict[str, NDArray[np.flo
     bad = np.zeros(n, dtype=bool)
     for what, mask in problems.items():
         count = int(mask.sum())
-        if count:
-            message = f"{count} of {n} curve(s) have an unusable {what}"
-            if config.on_bad_curve == "raise":
-                first = curves.index[np.flatnonzero(mask)[0]]
-                raise InputError(f"{message}; first at index {first!r}")
-            _warn(f"{message}; their limit speeds are null")
+        if count and config.on_bad_curve == "raise":
+            first = curves.index[np.flatnonzero(mask)[0]]
+            raise InputError(f"{count} of {n} curve(s) have an unusable {what}; first at "
+                             f"index {first!r}")
+        _warn("{count} of {n} curve(s) have an unusable {what}; their limit speeds are "
+              "null", {"count": count, "n": n}, {"what": what})
         bad |= mask
     data["radius_m"] = np.where(bad, np.nan, r)
     data["superelevation"] = np.where(bad, np.nan, e)
     posted = data["posted_kmh"]
     nonpositive = int(np.sum(posted <= 0))
+    _warn("{nonpositive} of {n} posted speed(s) are <= 0 and are treated as unknown",
+          {"nonpositive": nonpositive, "n": n})
     if nonpositive:
-        _warn(f"{nonpositive} of {n} posted speed(s) are <= 0 and are treated as unknown")
         data["posted_kmh"] = np.where(posted > 0, posted, np.nan)
     rse = data["radius_se_m"]
     data["radius_se_m"] = np.where(rse >= 0, rse, config.radius_se_default_fraction * r)
