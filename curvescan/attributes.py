@@ -96,7 +96,7 @@ def first_value(groups: np.ndarray, rows: np.ndarray, values: np.ndarray, n: int
     out = np.full(n, None, dtype=object)
     order = np.lexsort((rows, groups))
     g = groups[order]
-    first = np.r_[True, g[1:] != g[:-1]]
+    first = np.r_[True, g[1:] != g[:-1]] if g.size else np.zeros(0, dtype=bool)
     out[g[first]] = values[rows[order][first]]
     return out
 

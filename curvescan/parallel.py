@@ -10,10 +10,12 @@ The result equals a single-process scan (ids aside) because chains are never cut
 
 1. *survey* (one task per partition): read the partition, project it to the working CRS
    (chosen once from the total bounds), clean its parts exactly as
-   :func:`curvescan.prepare.prepare` does, and return only the two ends of every part;
+   :func:`curvescan.prepare.prepare` does, and return only the two ends of every part
+   (and the largest bare magnitude in the superelevation field, for its ``auto`` unit);
 2. *join* (client): :func:`curvescan.prepare.chain_order` over all part ends at once
    gives every chain, its parts in order and their directions; each chain gets a home
-   partition (the partition of its first part);
+   partition (the partition of its first part); the superelevation unit is decided for
+   the layer;
 3. *hand-over* (one task per partition with parts of foreign chains): the input rows
    other partitions need;
 4. *scan* (one task per partition): own rows plus handed-over rows, chains assembled in
@@ -85,6 +87,7 @@ class _Survey:
                                 # local_fid)
     skipped: list
     messages: list
+    largest_bare: float | None = None  # of the superelevation field (terrain.field_largest_bare)
 
 
 def _load_partition(src: Any, i: int, payload: Any, config: Any,
@@ -129,9 +132,14 @@ class _Given:
 
 
 def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Survey:
-    """Read partition ``i``, clean its parts, return their ends (first pass)."""
+    """Read partition ``i``, clean its parts, return their ends (first pass).
+
+    The survey also holds the partition's largest bare superelevation magnitude, for the
+    layer's ``auto`` unit (:func:`curvescan.terrain.field_largest_bare`).
+    """
     from .pipeline import _check_fields
     from .prepare import PartSummary, join_groups
+    from .terrain import field_largest_bare
 
     with record_warnings() as caught:
         raw = src.read(i, payload)
@@ -144,8 +152,9 @@ def survey_task(src: Any, i: int, payload: Any, config: Any, crs: Any) -> _Surve
         parts, part_row, ordinal, skipped = _cleaned(frame, config, crs)
         group = join_groups(frame, config, part_row)
         summary = PartSummary.of(parts, frame["src_fid"].to_numpy(np.int64)[part_row], config)
+        largest_bare = field_largest_bare(frame, config)
     return _Survey(len(frame), local_fid, part_row, ordinal, group, summary, skipped,
-                   list(caught))
+                   list(caught), largest_bare)
 
 
 def handover_task(src: Any, i: int, payload: Any, config: Any, offset: int,
@@ -174,8 +183,11 @@ class _Plan:
 
 def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, dem: Any,
               plan: _Plan, handed: list, arrow: bool = False,
-              out_dir: str | None = None) -> dict:
+              out_dir: str | None = None, bare_percent: bool | None = None) -> dict:
     """Scan the chains homed in partition ``i`` (second pass).
+
+    ``bare_percent`` is the layer's ``auto`` superelevation unit, decided on the client
+    from every partition's survey, so that all partitions read the field alike.
 
     ``layers`` of the returned dict is ``(named layers, assessment summary)``; with
     ``arrow`` the layers are :class:`curvescan.io.partitions.ArrowLayer` tables, made here
@@ -221,7 +233,8 @@ def scan_task(src: Any, i: int, payload: Any, config: Any, crs: Any, note: str, 
         frame = frame.drop(columns="_global_row")
         timings["prepare"] = round(time.perf_counter() - t, 4)
         layers, speed, terrain_record, vertex_record = scan_chains(
-            frame, chains, config, dem, lambda *_: None, timings)
+            frame, chains, config, dem, lambda *_: None, timings,
+            superelevation_bare_percent=bare_percent)
         curves, segments, hazards, extra, summary = layers
         named = {"curves": curves, "segments": segments, "hazards": hazards, **extra}
         del layers, curves, segments, hazards, extra
@@ -382,6 +395,7 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
     from .errors import DataQualityWarning, InputError
     from .io.partitions import open_partitions
     from .prepare import _reason_summary
+    from .terrain_attr import auto_bare_percent
 
     report = progress or (lambda stage, frac: None)
     size = config.partition_features or DEFAULT_PARTITION_FEATURES
@@ -410,6 +424,9 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
                    for k, sv in enumerate(surveys) for s in sv.skipped]
         recorded = merge([m for sv in surveys for m in sv.messages])
         warn_again(recorded, stacklevel=3)
+        # the auto superelevation unit: decided once, on the whole layer's field
+        bare_percent = auto_bare_percent(max(
+            (sv.largest_bare for sv in surveys if sv.largest_bare is not None), default=None))
         t = time.perf_counter()
         planned = _plans(surveys, config)
         if planned is None:
@@ -449,7 +466,7 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
                 p = submitted
                 fut = client.submit(scan_task, light, p, src.payload(p), config, crs, note,
                                     dem_path, plans[p], [hand[q] for q in plans[p].sources],
-                                    arrow, files, pure=False)
+                                    arrow, files, bare_percent, pure=False)
                 index[fut.key] = p
                 queue.add(fut)
                 submitted += 1

@@ -41,6 +41,7 @@ from .prepare import point_scale, prepare, roundabout_rows
 from .read import load
 from .recording import describe, merge, record_warnings, warn_again, warn_counted
 from .speeds import parse_speeds
+from .terrain_attr import auto_bare_percent
 
 __all__ = ["scan", "ScanResult"]
 
@@ -191,12 +192,15 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
         frame = _timed(timings, "read", lambda: load(source, config))
         report("read", 0.1)
         _check_fields(frame, config)
+        # the superelevation unit (auto) is the whole layer's, not only its curves'
+        bare_percent = auto_bare_percent(terrain.field_largest_bare(frame, config))
         chains = _timed(timings, "prepare", lambda: prepare(frame, config))
         frame = _attributes_only(frame)  # free the input geometries: chains hold them now
         _return_freed_memory()
         report("prepare", 0.25)
         layers, speed_report, terrain_record, vertex_record = scan_chains(
-            frame, chains, config, dem, report, timings, wkb=True)
+            frame, chains, config, dem, report, timings, wkb=True,
+            superelevation_bare_percent=bare_percent)
     caught = merge(caught)
     messages = describe(caught)
     warn_again(caught)
@@ -212,11 +216,15 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
 
 
 def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
-                report: Progress, timings: dict[str, float], *,
-                wkb: bool = False) -> tuple[tuple, dict, dict, dict]:
+                report: Progress, timings: dict[str, float], *, wkb: bool = False,
+                superelevation_bare_percent: bool | None = None
+                ) -> tuple[tuple, dict, dict, dict]:
     """Run the stages after prepare (geometry, terrain, physics, assess) on prepared chains.
 
     Used by :func:`scan` and, once per partition, by :mod:`curvescan.parallel`.
+    ``superelevation_bare_percent`` is the ``auto`` superelevation unit decided on the
+    whole input layer (:func:`curvescan.terrain.field_largest_bare`), handed to
+    :func:`curvescan.terrain.evaluate`.
 
     Returns
     -------
@@ -251,7 +259,8 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     _mark_roundabouts(curves, frame, config, curve_rows, chains.ring_rows)
     ter = _timed(timings, "terrain",
                  lambda: terrain.evaluate(curves, geo.stations, config,
-                                          None if dem is None else str(dem)))
+                                          None if dem is None else str(dem),
+                                          superelevation_bare_percent=superelevation_bare_percent))
     terrain_record = terrain.run_record(ter)
     vertex_record = dict(geo.vertices)
     curves = curves.join(ter.drop(columns=[c for c in ter.columns if c in curves.columns]))

@@ -23,7 +23,12 @@ from .declare import Param
 from .errors import AssumptionWarning, CRSError, DataQualityWarning, InputError
 from .geometry.stations import Stations
 from .recording import warn_counted
-from .terrain_attr import assume_superelevation, parse_number, parse_superelevation
+from .terrain_attr import (
+    assume_superelevation,
+    largest_bare_magnitude,
+    parse_number,
+    parse_superelevation,
+)
 from .terrain_fit import (
     ChainIndex,
     centreline_samples,
@@ -34,7 +39,7 @@ from .terrain_fit import (
     window_grades,
 )
 
-__all__ = ["PARAMETERS", "OUTPUT_COLUMNS", "evaluate", "run_record"]
+__all__ = ["PARAMETERS", "OUTPUT_COLUMNS", "evaluate", "run_record", "field_largest_bare"]
 
 _T = "terrain"
 PARAMETERS: tuple[Param, ...] = (
@@ -153,8 +158,27 @@ def _empty(index: pd.Index) -> pd.DataFrame:
     return pd.DataFrame({c: pd.Series(dtype=t) for c, t in OUTPUT_COLUMNS.items()}, index=index)
 
 
+def field_largest_bare(frame: pd.DataFrame, config: Any) -> float | None:
+    """Largest bare magnitude in the superelevation field of the input rows ``frame``.
+
+    What the ``auto`` unit rule decides on (:func:`~curvescan.terrain_attr.auto_bare_percent`)
+    when taken over the whole layer; a partitioned scan takes the largest over its
+    partitions.
+
+    Returns
+    -------
+    float or None
+        None when no superelevation field is used or its unit is given (not ``auto``).
+    """
+    name = config.superelevation_field
+    if config.superelevation_unit != "auto" or name is None or name not in frame.columns:
+        return None
+    return largest_bare_magnitude(frame[name].unique())  # few distinct values: parse those
+
+
 def evaluate(
-    curves: pd.DataFrame, stations: Stations, config: Any, dem: str | None = None
+    curves: pd.DataFrame, stations: Stations, config: Any, dem: str | None = None, *,
+    superelevation_bare_percent: bool | None = None,
 ) -> pd.DataFrame:
     """Superelevation, grade and DEM quality for every curve.
 
@@ -171,6 +195,10 @@ def evaluate(
         Settings; this stage reads the parameters in :data:`PARAMETERS`.
     dem : str, optional
         DEM raster path.
+    superelevation_bare_percent : bool, optional
+        Whether bare numbers of the superelevation field are percent, decided by the
+        ``auto`` unit on the whole input layer (see :func:`field_largest_bare`); None
+        decides on the curves' values alone.
 
     Returns
     -------
@@ -215,7 +243,8 @@ def evaluate(
 
     e_attr = np.full(n, np.nan)
     if "attr_superelevation" in curves.columns:
-        e_attr = parse_superelevation(curves["attr_superelevation"], config.superelevation_unit)
+        e_attr = parse_superelevation(curves["attr_superelevation"], config.superelevation_unit,
+                                      superelevation_bare_percent)
 
     meas = _measure(curves, stations, config, dem, toward, lanes, width, record) if dem else None
 

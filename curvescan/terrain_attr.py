@@ -16,6 +16,8 @@ from .recording import warn_counted
 __all__ = [
     "MAX_PLAUSIBLE_SUPERELEVATION",
     "parse_superelevation",
+    "largest_bare_magnitude",
+    "auto_bare_percent",
     "parse_number",
     "design_superelevation",
     "assume_superelevation",
@@ -80,17 +82,45 @@ def parse_number(values: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return number, percent, bad
 
 
-def parse_superelevation(values: Any, unit: str = "auto") -> np.ndarray:
+def largest_bare_magnitude(values: Any) -> float:
+    """Largest magnitude of the bare numbers (written without ``%``) among ``values``.
+
+    Returns
+    -------
+    float
+        0.0 when no value is a readable bare number.
+    """
+    number, percent, _ = parse_number(values)
+    mags = np.abs(number[np.isfinite(number) & ~percent])
+    return float(mags.max()) if mags.size else 0.0
+
+
+def auto_bare_percent(largest_bare: float | None) -> bool | None:
+    """Decide the ``auto`` unit: bare numbers are percent if ``largest_bare`` exceeds 0.20.
+
+    ``largest_bare`` is the largest bare magnitude of the whole field
+    (:func:`largest_bare_magnitude`); the boundary is :data:`MAX_PLAUSIBLE_SUPERELEVATION`.
+    None (no field) gives None.
+    """
+    return None if largest_bare is None else bool(largest_bare > MAX_PLAUSIBLE_SUPERELEVATION)
+
+
+def parse_superelevation(values: Any, unit: str = "auto",
+                         bare_percent: bool | None = None) -> np.ndarray:
     """Convert raw superelevation attribute values to fractions.
 
     Rule: a value written with ``%`` is a percentage. Bare numbers follow ``unit``:
     ``percent`` or ``fraction`` as told; ``auto`` decides once for the whole field: if any
-    bare magnitude exceeds :data:`MAX_PLAUSIBLE_SUPERELEVATION` (0.20) the field is in
-    percent, otherwise in fractions. An :class:`AssumptionWarning` is raised when ``auto``
-    reads the field as percent but it also holds bare non-zero values below 1 (which would
-    mean less than 1 %, and look like fractions mixed in). Values whose magnitude exceeds
-    0.20 after conversion, and unreadable text, become NaN with a counted
-    :class:`DataQualityWarning`.
+    bare magnitude of the field exceeds :data:`MAX_PLAUSIBLE_SUPERELEVATION` (0.20) the
+    field is in percent, otherwise in fractions (:func:`auto_bare_percent`). The field is
+    the input layer's: a scan decides from all its features
+    (:func:`curvescan.terrain.field_largest_bare`, over all partitions of a partitioned
+    scan) and passes the decision as ``bare_percent``; without it the decision is made on
+    ``values`` alone. An :class:`AssumptionWarning` is raised when ``auto`` reads the field
+    as percent but ``values`` also hold bare non-zero values below 1 (which would mean
+    less than 1 %, and look like fractions mixed in); its count adds up over partitions.
+    Values whose magnitude exceeds 0.20 after conversion, and unreadable text, become NaN
+    with a counted :class:`DataQualityWarning`.
 
     Parameters
     ----------
@@ -98,6 +128,10 @@ def parse_superelevation(values: Any, unit: str = "auto") -> np.ndarray:
         Raw values (numbers, strings such as ``"6%"``, ``"0.06"``, ``"6"``, or None).
     unit : {"auto", "percent", "fraction"}
         How bare numbers are read.
+    bare_percent : bool, optional
+        With ``auto``: whether bare numbers are percent, decided on the whole field
+        (:func:`auto_bare_percent`); None decides on ``values``. Ignored with another
+        ``unit``.
 
     Returns
     -------
@@ -112,7 +146,9 @@ def parse_superelevation(values: Any, unit: str = "auto") -> np.ndarray:
         bare_pct = False
     else:
         mags = np.abs(number[bare])
-        bare_pct = bool(mags.size and mags.max() > MAX_PLAUSIBLE_SUPERELEVATION)
+        bare_pct = bare_percent
+        if bare_pct is None:
+            bare_pct = auto_bare_percent(float(mags.max()) if mags.size else 0.0)
         small = int(((mags > 0) & (mags < 1)).sum()) if bare_pct else 0
         if small:
             warn_counted(

@@ -261,3 +261,14 @@ def test_sorted_unique_equals_numpy_unique(values):
 
     values = np.asarray(values, dtype=np.int64)
     np.testing.assert_array_equal(sorted_unique(values), np.unique(values))
+
+
+def test_first_value_of_no_groups_is_empty():
+    # a partition whose chains hold no curve: no (curve, row) pairs at all
+    from curvescan.attributes import first_value
+
+    none = np.zeros(0, dtype=np.int64)
+    assert first_value(none, none, np.array(["x"], dtype=object), 0).shape == (0,)
+    got = first_value(np.array([1, 0, 1]), np.array([2, 1, 0]),
+                      np.array(["a", "b", "c"], dtype=object), 3)
+    assert list(got) == ["b", "a", None]

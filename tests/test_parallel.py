@@ -479,3 +479,26 @@ def test_partitioned_warnings_are_the_single_process_warnings(cluster):
         assert parted.run["timings_s"]["partitions"] >= 6
         assert sorted(parted.run["warnings"]) == sorted(lines)
         assert parted.run["posted_speed"] == one.run["posted_speed"]
+
+
+def test_superelevation_unit_is_decided_for_the_whole_layer(cluster):
+    # "auto" reads bare superelevation numbers as percent if any value of the field exceeds
+    # 0.20. The percent-looking values sit in two rows of the first two partitions only:
+    # the other partitions alone hold fraction-looking values, yet the layer is in percent
+    # (with the warning that values below 1 look like fractions), as in one process.
+    net = _network()
+    net["se"] = "0.05"
+    net.loc[net.index[[9, 16]], "se"] = "6"
+    kw = {"speed_field": "maxspeed", "superelevation_field": "se"}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        one = scan(net, **kw)
+        parted = scan(net, partition_features=12, scheduler=cluster.scheduler_address, **kw)
+    e = one.curves["superelevation"].to_numpy()
+    assert np.isclose(e, 0.06).sum() >= 2
+    assert np.isclose(e, 0.0005).sum() > 20
+    small = [w for w in one.run["warnings"] if "look like fractions" in w]
+    assert len(small) == 1 and small[0].startswith("AssumptionWarning")
+    assert parted.run["timings_s"]["partitions"] >= 6
+    assert sorted(parted.run["warnings"]) == sorted(one.run["warnings"])
+    assert_same_layers(one, parted)

@@ -223,3 +223,23 @@ def test_index_is_kept_and_parameters_are_declared():
             "superelevation_assumption"} <= names
     assert next(p for p in terrain.PARAMETERS
                 if p.name == "superelevation_field").flag == "--superelevation-field"
+
+
+def test_scan_decides_the_unit_on_every_feature_not_only_curves(curve_layer):
+    # the straight road holds no curve, but its bare 6 makes the layer's field percent
+    import geopandas as gpd
+    import pandas as pd
+
+    from curvescan import scan
+
+    from .conftest import frame_from_lines
+
+    straight = frame_from_lines([[[0.0, 3000.0], [600.0, 3000.0]]], maxspeed=["100"])
+    layer = gpd.GeoDataFrame(pd.concat([curve_layer, straight], ignore_index=True),
+                             crs=curve_layer.crs)
+    layer["se"] = ["0.05", "6"]
+    with pytest.warns(AssumptionWarning, match="1 bare value"):
+        res = scan(layer, superelevation_field="se")
+    assert len(res.curves) == 1
+    assert res.curves["superelevation"].iloc[0] == pytest.approx(0.0005)
+    assert res.curves["superelevation_source"].iloc[0] == "attribute"

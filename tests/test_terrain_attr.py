@@ -8,7 +8,9 @@ import pytest
 from curvescan.errors import AssumptionWarning, DataQualityWarning
 from curvescan.terrain_attr import (
     assume_superelevation,
+    auto_bare_percent,
     design_superelevation,
+    largest_bare_magnitude,
     parse_number,
     parse_superelevation,
 )
@@ -31,6 +33,46 @@ def test_mixed_field_warns_as_ambiguous():
     with pytest.warns(AssumptionWarning, match="1 bare value"):
         got = parse_superelevation([6, 0.05])
     np.testing.assert_allclose(got, [0.06, 0.0005])
+
+
+def test_largest_bare_magnitude_leaves_percent_signs_out():
+    assert largest_bare_magnitude(["6%", "0.05", -0.08, None, "steep", "12 %"]) == 0.08
+    assert largest_bare_magnitude(["6", "0,5", -7.5]) == 7.5
+    assert largest_bare_magnitude(["6%", None, ""]) == 0.0
+    assert largest_bare_magnitude([]) == 0.0
+    # the auto rule: percent above 0.20 only
+    assert [auto_bare_percent(v) for v in (7.5, 0.2, 0.0, None)] == [True, False, False, None]
+
+
+def test_decision_passed_in_overrides_the_values_own():
+    # the field is decided on the whole layer: these values alone would read as fractions
+    with pytest.warns(AssumptionWarning, match="2 bare value"):
+        got = parse_superelevation(["0.05", "6%", 0.04, "7"], bare_percent=True)
+    np.testing.assert_allclose(got, [0.0005, 0.06, 0.0004, 0.07])
+    # ... and these as percent
+    got = parse_superelevation(["0.05", "6%", 0.04, "0.1"], bare_percent=False)
+    np.testing.assert_allclose(got, [0.05, 0.06, 0.04, 0.1])
+    with pytest.warns(DataQualityWarning, match="1 value"):
+        got = parse_superelevation(["6", "0.05"], bare_percent=False)
+    assert np.isnan(got[0]) and got[1] == pytest.approx(0.05)
+    # a unit given explicitly wins over the decision
+    np.testing.assert_allclose(parse_superelevation([0.05], "fraction", bare_percent=True),
+                               [0.05])
+
+
+def test_field_largest_bare_of_the_input_rows():
+    import pandas as pd
+
+    from curvescan.config import make_config
+    from curvescan.terrain import field_largest_bare
+
+    frame = pd.DataFrame({"se": ["0.05", "6", None, "8%", "6"], "other": 1})
+    assert field_largest_bare(frame, make_config(superelevation_field="se")) == 6.0
+    assert field_largest_bare(frame, make_config()) is None
+    assert field_largest_bare(frame, make_config(superelevation_field="se",
+                                                 superelevation_unit="fraction")) is None
+    assert field_largest_bare(frame.drop(columns="se"),
+                              make_config(superelevation_field="se")) is None
 
 
 def test_forced_units():
