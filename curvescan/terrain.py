@@ -226,6 +226,13 @@ def evaluate(
     out = _empty(curves.index)
     n = len(curves)
     record: dict[str, Any] = {"dem": None if dem is None else str(dem), "assumption": mode}
+    if config.superelevation_field is not None:
+        # how bare numbers of the superelevation field were read ("auto" when decided on
+        # the curves' values alone, in a direct call)
+        unit = config.superelevation_unit
+        if unit == "auto" and superelevation_bare_percent is not None:
+            unit = "percent" if superelevation_bare_percent else "fraction"
+        record["superelevation_field_unit"] = unit
     out.attrs["terrain"] = record
     if n == 0:
         record.update(counts={"attribute": 0, "terrain": 0, "assumed": 0})

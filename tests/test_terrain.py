@@ -243,3 +243,5 @@ def test_scan_decides_the_unit_on_every_feature_not_only_curves(curve_layer):
     assert len(res.curves) == 1
     assert res.curves["superelevation"].iloc[0] == pytest.approx(0.0005)
     assert res.curves["superelevation_source"].iloc[0] == "attribute"
+    # the run record says how the field's bare numbers were read
+    assert res.run["terrain"]["superelevation_field_unit"] == "percent"
