@@ -384,6 +384,33 @@ def test_a_flat_arc_whose_seed_settles_on_a_flatter_circle_is_retried():
     assert within >= 0.9 * found
 
 
+def test_a_short_sharp_arc_on_three_vertices_is_kept_for_its_turn():
+    """An arc of 87 m radius and 56 m (37 degrees) between a tangent and a long flat curve,
+    on 0.5 m noise and 5-25 m vertices (road 189 of the noisy accuracy scenario, seed 1):
+    its circle fit holds three vertices, too few to show the road bends (radius 2.9
+    standard deviations from straight), and the curve was dropped. The heading change
+    from one window before it to one window after is 28 standard deviations: it is kept.
+    Truth: the generator's own alignment."""
+    from curvescan.synthetic import random_alignment
+
+    rng = np.random.default_rng(1)
+    for _ in range(190):  # the scenario's roads 0-189, drawn in order
+        al = random_alignment(rng, n_curves=6)
+    xy, _ = vertices(al, np.random.default_rng(100_003 + 189), jitter=(5.0, 25.0),
+                     noise_m=0.5)
+    truth = al.truth()
+    arc = truth.iloc[0]
+    assert arc["radius_m"] == pytest.approx(86.7, abs=0.1)  # the case this test is about
+    c = _curves([xy + [497_000.0, 5_054_000.0]]).curves
+    mid = 0.5 * (arc["circ_start_m"] + arc["circ_end_m"])
+    hit = c[(c["s_start_m"] <= mid) & (c["s_end_m"] >= mid)]
+    assert len(hit) == 1
+    assert hit["deflection_deg"].iloc[0] == pytest.approx(arc["circ_deflection_deg"], rel=0.2)
+    assert hit["radius_m"].iloc[0] < 150.0
+    # and no curve is made of the tangents around it
+    assert len(c) <= len(truth) + 1
+
+
 @pytest.mark.parametrize("radius,deflection,spiral", [(120.0, 50.0, 60.0), (80.0, 60.0, 40.0)])
 def test_sparse_vertices_on_a_spiralled_curve_radius_within_se(radius, deflection, spiral):
     """Vertices 25-45 m apart leave a short arc two or three vertices: the radius may be

@@ -410,6 +410,49 @@ def _shift_spread(prof: Any, parts: dict, tolerance_floor_m: float) -> np.ndarra
     return out
 
 
+def _turn_significant(prof, parts: dict, significant: np.ndarray, base: np.ndarray,
+                      lengths: np.ndarray, config: Any) -> np.ndarray:
+    """Parts whose circle fit is too weak to show the road bends (a short arc on two or
+    three vertices) but whose heading change is: the turn at the part's scale from one
+    window before to one window after it, against the noise of that turn (two chord
+    headings, each with standard deviation about sqrt(2) sigma / window), at least
+    ``min_deflection_deg`` and at least one window clear of every part kept on its own
+    (a weak part beside a well-fitted one is the fit's split of that curve or the
+    curvature window's blur of its end, not a curve of its own)."""
+    n = len(parts["radius"])
+    out = np.zeros(n, dtype=bool)
+    weak = np.flatnonzero(~significant & np.isfinite(parts["radius"]))
+    if not len(weak):
+        return out
+    chain = parts["chain"].astype(np.int64)
+    scale = parts["scale"].astype(np.int64)
+    reach = prof.half_m[scale, chain]
+    lo = np.maximum(parts["lo"] - reach, base[chain])
+    hi = np.minimum(parts["hi"] + reach, base[chain] + lengths[chain])
+    i_s = find(prof.gs, lo, side="left")
+    i_e = np.maximum(find(prof.gs, hi, side="right") - 1, i_s)
+    turn = np.zeros(n)
+    for j in np.unique(scale[weak]):
+        m = weak[scale[weak] == j]
+        csum = cumulative_turn(prof, int(j))
+        turn[m] = csum[i_e[m]] - csum[i_s[m]]
+    sd = 2.0 * prof.sigma[chain] / reach
+    with np.errstate(invalid="ignore", divide="ignore"):
+        strong = ((np.abs(turn) >= np.radians(config.min_deflection_deg))
+                  & (np.abs(turn) / sd >= config.min_significance)
+                  & (np.sign(turn) == parts["sign"]))
+    # clear of the parts kept on their own
+    sure = np.flatnonzero(significant)
+    cand = weak[strong[weak]]
+    if len(cand) and len(sure):
+        a = (parts["lo"] - reach)[cand][:, None] < parts["hi"][sure][None, :]
+        b = (parts["hi"] + reach)[cand][:, None] > parts["lo"][sure][None, :]
+        same = chain[cand][:, None] == chain[sure][None, :]
+        cand = cand[~(a & b & same).any(axis=1)]
+    out[cand] = True
+    return out
+
+
 def _radius_sd(parts: dict, sigma_chain: np.ndarray) -> np.ndarray:
     """Statistical standard deviation of the radius: the fit's geometry times the pooled
     residual and chain noise (no Student-t factor, no systematic share)."""
@@ -457,6 +500,7 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
         # statistical standard error (the systematic share of ``se`` is about how well
         # the radius is known, not whether the road bends)
         significant = radius / _radius_sd(parts, prof.sigma) >= config.min_significance
+    significant |= _turn_significant(prof, parts, significant, base, chains.lengths, config)
     keep = np.isfinite(radius) & (radius > 0) & (radius <= config.max_radius_m)
     keep &= significant | ~np.isfinite(se)
     p = {k: v[keep] for k, v in parts.items()}
