@@ -33,6 +33,7 @@ from scipy.spatial import cKDTree
 from .declare import Param
 from .errors import CRSError, DataQualityWarning, InputError
 from .geometry import _kernels as kn
+from .geometry.pieces import MIN_PIECE_M
 from .recording import warn_counted
 from .read import parse_crs
 
@@ -83,6 +84,10 @@ ROUNDABOUT_VALUES = frozenset({"roundabout", "circular", "yes", "true", "1", "y"
 #: Two parts that leave their common end within this angle of each other double back: they
 #: are not joined into one chain (a duplicated or overlapping feature).
 UTURN_DEG = 30.0
+
+#: Parts no longer than this (m) are skipped: the output leaves out pieces this short
+#: (:func:`curvescan.geometry.pieces.piece_table`), so such a part would be in no segment.
+MIN_PART_LENGTH_M = MIN_PIECE_M
 
 #: Largest point scale error tolerated in a projected input CRS before re-projecting.
 _MAX_SCALE_ERROR = 0.002
@@ -392,10 +397,13 @@ def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any,
     keep = np.flatnonzero(~missing & line_like)
     parts, part_row = _single_parts(geoms, gtype, keep)
     is_line = np.isin(shapely.get_type_id(parts), (1, 2))
-    for i in np.flatnonzero(~is_line):
-        skipped.append({"src_fid": int(src_fid[part_row[i]]), "reason": "non-line part"})
-    if not is_line.all():
-        parts, part_row = parts[is_line], part_row[is_line]
+    empty_part = is_line & shapely.is_empty(parts)
+    for i in np.flatnonzero(~is_line | empty_part):
+        skipped.append({"src_fid": int(src_fid[part_row[i]]),
+                        "reason": "empty part" if empty_part[i] else "non-line part"})
+    if not is_line.all() or empty_part.any():
+        keep_part = is_line & ~empty_part
+        parts, part_row = parts[keep_part], part_row[keep_part]
     xy, vidx = shapely.get_coordinates(parts, return_index=True)  # 2D: Z/M dropped
     del parts
     if project is not None:
@@ -424,13 +432,23 @@ def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any,
     if drop.any():
         xy, vidx = xy[~drop], vidx[~drop]
     xy, vidx = _remove_spikes(xy, vidx, np.radians(config.spike_angle_deg))
+    if len(xy) > 1:  # a spike taken out may leave its two neighbours on one point
+        again = np.zeros(len(xy), dtype=bool)
+        again[1:] = ((vidx[1:] == vidx[:-1]) & (np.abs(np.diff(xy[:, 0])) < 1e-6)
+                     & (np.abs(np.diff(xy[:, 1])) < 1e-6))
+        if again.any():
+            xy, vidx = xy[~again], vidx[~again]
     counts = np.bincount(vidx, minlength=len(part_row))
-    ok = counts >= 2
+    same = vidx[1:] == vidx[:-1]
+    seg = np.hypot(np.diff(xy[:, 0]), np.diff(xy[:, 1]))
+    length = np.bincount(vidx[1:][same], seg[same], minlength=len(part_row))
+    ok = (counts >= 2) & (length > MIN_PART_LENGTH_M)
     for i in np.flatnonzero(~ok):
         skipped.append({"src_fid": int(src_fid[part_row[i]]),
-                        "reason": "fewer than two distinct vertices (zero length)"
-                        if n_finite[i] >= 2 else "fewer than two vertices with finite "
-                        "coordinates (NaN, infinite or beyond the working CRS)"})
+                        "reason": "fewer than two vertices with finite coordinates (NaN, "
+                        "infinite or beyond the working CRS)" if n_finite[i] < 2 else
+                        "fewer than two distinct vertices (zero length)" if counts[i] < 2
+                        else f"shorter than {MIN_PART_LENGTH_M * 1000:g} mm"})
     if ok.all():
         return (xy, vidx), part_row, skipped
     keep_v = ok[vidx]
@@ -443,14 +461,23 @@ def _single_parts(geoms: np.ndarray, gtype: np.ndarray,
     """Parts of the geometries ``geoms[keep]`` in row order, and the row of each part.
 
     Single lines are used as they are; only multi-part geometries are exploded (exploding
-    copies every geometry).
+    copies every geometry), collections within collections down to their single parts.
     """
     single = np.isin(gtype[keep], (1, 2))
     if single.all():
         return geoms[keep], keep
     multi = keep[~single]
     mparts, midx = shapely.get_parts(geoms[multi], return_index=True)
-    rows = np.concatenate([keep[single], multi[midx]])
+    midx = multi[midx]
+    nested = np.isin(shapely.get_type_id(mparts), (4, 5, 6, 7))
+    while nested.any():  # a GeometryCollection holding multi-lines or collections
+        inner, iidx = shapely.get_parts(mparts[nested], return_index=True)
+        order = np.argsort(np.r_[np.flatnonzero(~nested), np.flatnonzero(nested)[iidx]],
+                           kind="stable")
+        mparts = np.concatenate([mparts[~nested], inner])[order]
+        midx = np.concatenate([midx[~nested], midx[nested][iidx]])[order]
+        nested = np.isin(shapely.get_type_id(mparts), (4, 5, 6, 7))
+    rows = np.concatenate([keep[single], midx])
     parts = np.concatenate([geoms[keep[single]], mparts])
     order = np.argsort(rows, kind="stable")  # parts of one row keep their order
     return parts[order], rows[order]

@@ -8,16 +8,18 @@ known CRS. Nothing is dropped here; invalid geometries are dealt with (and recor
 from __future__ import annotations
 
 import os
+import warnings
 from typing import Any
 
 import geopandas as gpd
+import numpy as np
 import pandas as pd
 import pyproj
 
 from .declare import Param
-from .errors import CRSError, InputError
+from .errors import CRSError, DataQualityWarning, InputError
 
-__all__ = ["PARAMETERS", "load", "parse_crs"]
+__all__ = ["PARAMETERS", "load", "parse_crs", "with_src_fid", "set_aside_src_fid", "usable_ids"]
 
 PARAMETERS: tuple[Param, ...] = (
     Param("layer", "str", None, "Layer to read from a multi-layer source (GeoPackage, GPX).",
@@ -42,6 +44,57 @@ def parse_crs(value: Any, *, what: str = "CRS") -> pyproj.CRS:
         raise CRSError(f"{what} {value!r} is not a valid CRS ({msg})") from None
 
 
+def usable_ids(values: pd.Series) -> bool:
+    """Whether ``values`` can serve as feature ids: integers, none missing, all different."""
+    if pd.api.types.is_bool_dtype(values) or values.isna().any():
+        return False
+    if pd.api.types.is_float_dtype(values):
+        v = values.to_numpy(dtype=float)
+        if not (np.isfinite(v).all() and (v == np.round(v)).all()):
+            return False
+    elif not pd.api.types.is_integer_dtype(values):
+        return False
+    return bool(values.is_unique)
+
+
+def set_aside_src_fid(frame: gpd.GeoDataFrame, label: str,
+                      why: str | None = None) -> gpd.GeoDataFrame:
+    """``frame`` with its ``src_fid`` field renamed (``src_fid_input``), warned: the field
+    is data, not the feature ids (``why`` says what the ids are instead)."""
+    new = "src_fid_input"
+    while new in frame.columns:
+        new += "_"
+    why = why or "it is not a unique integer for every row; the row numbers are"
+    warnings.warn(f"{label} has a field src_fid; read as {new!r} ({why} the src_fid of the "
+                  "output)", DataQualityWarning, stacklevel=4)
+    return frame.rename(columns={"src_fid": new})
+
+
+def with_src_fid(frame: gpd.GeoDataFrame, fids: Any = None, *,
+                 label: str = "the input") -> gpd.GeoDataFrame:
+    """``frame`` with a ``src_fid`` column of feature ids (in place where it inserts one).
+
+    ``fids`` (the FIDs of a file read through GDAL) are the ids where given; else a
+    ``src_fid`` column the frame has already (the ids :func:`load` gave it), else an
+    integer index without repeats, else the row numbers. A ``src_fid`` field of the data
+    that is not used as the ids (the file's FIDs are, or it is not a unique integer for
+    every row) is kept under another name, with a warning, never mixed up with the ids.
+    """
+    if "src_fid" in frame.columns:
+        if fids is None and usable_ids(frame["src_fid"]):
+            if not pd.api.types.is_integer_dtype(frame["src_fid"]):
+                frame["src_fid"] = frame["src_fid"].astype("int64")
+            return frame
+        frame = set_aside_src_fid(frame, label, "the feature ids are" if fids is not None
+                                  else None)
+    if fids is None:
+        index = frame.index
+        usable = pd.api.types.is_integer_dtype(index) and index.is_unique
+        fids = index.to_numpy() if usable else np.arange(len(frame))
+    frame.insert(0, "src_fid", pd.array(np.asarray(fids), dtype="int64"))
+    return frame
+
+
 def load(source: str | os.PathLike | gpd.GeoDataFrame, config: Any) -> gpd.GeoDataFrame:
     """Return the road layer as a GeoDataFrame with ``src_fid`` and a CRS.
 
@@ -64,11 +117,10 @@ def load(source: str | os.PathLike | gpd.GeoDataFrame, config: Any) -> gpd.GeoDa
             from .io.vector import WHERE_NOT_HERE
 
             raise InputError(WHERE_NOT_HERE)
-        frame = source.copy()
-        if "src_fid" not in frame.columns:
-            index = frame.index
-            fids = index.to_numpy() if pd.api.types.is_integer_dtype(index) else range(len(frame))
-            frame.insert(0, "src_fid", pd.array(fids, dtype="int64"))
+        if source._geometry_column_name not in source.columns:
+            raise InputError("the input frame has no active geometry column; set one with "
+                             "GeoDataFrame.set_geometry")
+        frame = with_src_fid(source.copy(), label="the input frame")
         frame = frame.reset_index(drop=True)
         label = "input frame"
     elif isinstance(source, (str, os.PathLike)):

@@ -49,6 +49,10 @@ def resolve_overlaps(curves: pd.DataFrame) -> pd.DataFrame:
     return curves
 
 
+#: Pieces no longer than this (m) are left out of the piece table.
+MIN_PIECE_M = 1e-3
+
+
 def piece_table(chains: Any, curves: pd.DataFrame) -> pd.DataFrame:
     """Every chain cut into ``tangent``, ``transition`` and ``curve`` pieces.
 
@@ -85,7 +89,7 @@ def piece_table(chains: Any, curves: pd.DataFrame) -> pd.DataFrame:
     parts.append(pd.DataFrame({"chain_id": gap_chain, "kind": "tangent", "s_start_m": gap_start,
                                "s_end_m": gap_end, "curve_id": 0, "radius_m": np.nan}))
     table = pd.concat(parts, ignore_index=True)
-    table = table[(table["s_end_m"] - table["s_start_m"]) > 1e-3]
+    table = table[(table["s_end_m"] - table["s_start_m"]) > MIN_PIECE_M]
     table = table.sort_values(["chain_id", "s_start_m"], kind="stable").reset_index(drop=True)
     table["length_m"] = table["s_end_m"] - table["s_start_m"]
     return table

@@ -37,6 +37,7 @@ import pyogrio
 import shapely
 
 from ..errors import DataSourceError, InputError
+from ..read import set_aside_src_fid, usable_ids, with_src_fid
 from .rtree import IndexBuilder
 from .vector import (NO_INDEX, WHERE_NOT_HERE, _choose_layer, _first_line, check_output_path,
                      check_where, no_feature_left, read_ogr)
@@ -102,6 +103,8 @@ class PartitionSource:
                 frame = self.parts[i].compute(scheduler="sync")
             except (ValueError, OSError) as exc:
                 raise DataSourceError(_first_line(f"cannot read {self.path}: {exc}")) from None
+            if "src_fid" in frame.columns and not usable_ids(frame["src_fid"]):
+                frame = set_aside_src_fid(frame, self.path)  # rows numbered as without
             return frame.reset_index(drop=True)
         if self.kind == "ogr":
             skip, count = self.ranges[i]
@@ -112,7 +115,7 @@ class PartitionSource:
                     OSError) as exc:
                 raise DataSourceError(_first_line(f"cannot read {self.path}: {exc}")) from None
             frame.index.name = None
-            frame.insert(0, "src_fid", frame.index.to_numpy(dtype="int64"))
+            frame = with_src_fid(frame, frame.index.to_numpy(dtype="int64"), label=self.path)
             return frame.reset_index(drop=True)
         return payload if payload is not None else self.parts[i]
 
@@ -128,11 +131,7 @@ def open_partitions(source: Any, *, layer: str | None, partition_features: int,
     if where is not None and (isinstance(source, gpd.GeoDataFrame) or is_parquet(str(source))):
         raise InputError(WHERE_NOT_HERE)
     if isinstance(source, gpd.GeoDataFrame):
-        if "src_fid" not in source.columns:  # the ids curvescan.read.load gives a frame
-            index = source.index
-            fids = index.to_numpy() if pd.api.types.is_integer_dtype(index) else range(len(source))
-            source = source.copy()
-            source.insert(0, "src_fid", pd.array(fids, dtype="int64"))
+        source = with_src_fid(source.copy(), label="the input frame")  # as load gives it
         starts = list(range(0, len(source), partition_features)) or [0]
         parts = [source.iloc[a:a + partition_features].reset_index(drop=True) for a in starts]
         if client is not None and not _in_process(client):

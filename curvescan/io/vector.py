@@ -17,9 +17,13 @@ from typing import Any, Callable, Mapping
 import geopandas as gpd
 import pandas as pd
 import pyogrio
+import pyproj
+import shapely
 from pyogrio.errors import DataLayerError, DataSourceError as _PyogrioSourceError
 
 from ..errors import DataQualityWarning, DataSourceError, InputError, OutputExistsError
+from ..read import with_src_fid
+from ..recording import warn_counted
 from . import curved
 from .rtree import IndexBuilder
 
@@ -122,7 +126,7 @@ def read_layer(path: str | os.PathLike, /, layer: str | None = None,
     frame.index.name = None
     if frame.crs is not None and frame.crs.name in _UNDEFINED_SRS:
         frame = frame.set_crs(None, allow_override=True)  # GeoPackage srs_id 0 / -1
-    frame.insert(0, "src_fid", frame.index.to_numpy(dtype="int64"))
+    frame = with_src_fid(frame, frame.index.to_numpy(dtype="int64"), label=path)
     return frame.reset_index(drop=True)
 
 
@@ -137,11 +141,14 @@ def read_ogr(path: str, **kwargs: Any) -> gpd.GeoDataFrame:
         return pyogrio.read_dataframe(path, use_arrow=True, fid_as_index=True, **kwargs)
     except NotImplementedError:  # "Nonlinear geometry types are not currently supported"
         pass
+    except shapely.errors.GEOSException:  # a geometry GEOS refuses (a line of one point)
+        pass
     meta, table = pyogrio.read_arrow(path, return_fids=True, **kwargs)
     geom_name = meta["geometry_name"] or "wkb_geometry"
     names = table.column_names
     fid_name = names[0]  # return_fids puts the FIDs first
-    geoms, counts = curved.from_wkb(table[geom_name].to_numpy(zero_copy_only=False))
+    blobs = table[geom_name].to_numpy(zero_copy_only=False)
+    geoms, counts = curved.from_wkb(blobs)
     frame = table.drop_columns([fid_name, geom_name]).to_pandas()
     frame.index = pd.Index(table[fid_name].to_numpy(), name=None)
     if counts:
@@ -149,6 +156,11 @@ def read_ogr(path: str, **kwargs: Any) -> gpd.GeoDataFrame:
         warnings.warn(f"{sum(counts.values())} curved geometries ({what}) read as lines: "
                       f"arcs stroked every {curved.ARC_STEP_DEG:g} degree of turn",
                       DataQualityWarning, stacklevel=2)
+    unreadable = int(sum(b is not None for b in blobs[pd.isna(geoms)]))
+    if unreadable:
+        warn_counted("{unreadable} geometries could not be read (invalid, e.g. a line of one "
+                     "point) and are skipped as missing", DataQualityWarning,
+                     {"unreadable": unreadable}, stacklevel=2)
     return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, index=frame.index),
                             crs=meta["crs"])
 
@@ -174,13 +186,35 @@ def check_where(path: str, layer: Any, where: str) -> None:
 
 def _read_parquet(path: str) -> gpd.GeoDataFrame:
     try:
-        frame = gpd.read_parquet(path)
-    except (ValueError, OSError) as exc:
+        try:
+            frame = gpd.read_parquet(path)
+        except shapely.errors.GEOSException:  # a geometry GEOS refuses (a line of one point)
+            frame = _read_parquet_wkb(path)
+    except (ValueError, OSError, KeyError) as exc:
         raise DataSourceError(_first_line(f"cannot read GeoParquet {path}: {exc}")) from None
-    frame = frame.reset_index(drop=True)
-    if "src_fid" not in frame.columns:
-        frame.insert(0, "src_fid", pd.RangeIndex(len(frame)).to_numpy(dtype="int64"))
-    return frame
+    return with_src_fid(frame.reset_index(drop=True), label=path)
+
+
+def _read_parquet_wkb(path: str) -> gpd.GeoDataFrame:
+    """A WKB-encoded GeoParquet file whose invalid geometries become missing (warned)."""
+    import json
+
+    import pyarrow.parquet as pq
+
+    table = pq.read_table(path)
+    meta = json.loads(table.schema.metadata[b"geo"])
+    name = meta["primary_column"]
+    crs = meta["columns"][name].get("crs", "OGC:CRS84")  # the GeoParquet default
+    blobs = table[name].to_numpy(zero_copy_only=False)
+    geoms, _ = curved.from_wkb(blobs)
+    unreadable = int(sum(b is not None for b in blobs[pd.isna(geoms)]))
+    if unreadable:
+        warn_counted("{unreadable} geometries could not be read (invalid, e.g. a line of one "
+                     "point) and are skipped as missing", DataQualityWarning,
+                     {"unreadable": unreadable}, stacklevel=4)
+    frame = table.drop_columns([name]).to_pandas().reset_index(drop=True)
+    crs = None if crs is None else pyproj.CRS.from_user_input(crs)
+    return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, index=frame.index), crs=crs)
 
 
 def check_output_path(path: str | os.PathLike, overwrite: bool) -> Path:
