@@ -257,8 +257,9 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     del measure  # _layers makes its own, to be able to drop it with the chains' vertices
     speed_report = _attach_attributes(curves, frame, config, curve_rows)
     _mark_roundabouts(curves, frame, config, curve_rows, chains.ring_rows)
+    stations = geo.stations
     ter = _timed(timings, "terrain",
-                 lambda: terrain.evaluate(curves, geo.stations, config,
+                 lambda: terrain.evaluate(curves, stations, config,
                                           None if dem is None else str(dem),
                                           superelevation_bare_percent=superelevation_bare_percent))
     terrain_record = terrain.run_record(ter)
@@ -270,7 +271,7 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     report("physics", 0.8)
     del ter, phys
     segments = geo.segments
-    del geo
+    del geo, stations
     layers = _timed(timings, "assess",
                     lambda: _layers(curves, segments, chains, frame, config, curve_rows,
                                     release=wkb))
