@@ -11,6 +11,7 @@ import logging
 import os
 import time
 from dataclasses import dataclass, field
+from functools import partial
 from pathlib import Path
 from typing import Any, Callable
 
@@ -257,11 +258,10 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     del measure  # _layers makes its own, to be able to drop it with the chains' vertices
     speed_report = _attach_attributes(curves, frame, config, curve_rows)
     _mark_roundabouts(curves, frame, config, curve_rows, chains.ring_rows)
-    stations = geo.stations
     ter = _timed(timings, "terrain",
-                 lambda: terrain.evaluate(curves, stations, config,
-                                          None if dem is None else str(dem),
-                                          superelevation_bare_percent=superelevation_bare_percent))
+                 partial(terrain.evaluate, curves, geo.stations, config,
+                         None if dem is None else str(dem),
+                         superelevation_bare_percent=superelevation_bare_percent))
     terrain_record = terrain.run_record(ter)
     vertex_record = dict(geo.vertices)
     curves = curves.join(ter.drop(columns=[c for c in ter.columns if c in curves.columns]))
@@ -271,7 +271,7 @@ def scan_chains(frame: gpd.GeoDataFrame, chains: Any, config: Any, dem: Any,
     report("physics", 0.8)
     del ter, phys
     segments = geo.segments
-    del geo, stations
+    del geo
     layers = _timed(timings, "assess",
                     lambda: _layers(curves, segments, chains, frame, config, curve_rows,
                                     release=wkb))
