@@ -315,7 +315,8 @@ def _working_crs(src: Any, config: Any, client: Any):
 def _bounds_task(src: Any, i: int, payload: Any) -> np.ndarray:
     from .prepare import finite_bounds
 
-    frame = src.read(i, payload)
+    with record_warnings():  # the survey reads the partition again and keeps its warnings
+        frame = src.read(i, payload)
     return finite_bounds(frame.geometry.values) if len(frame) else np.full(4, np.nan)
 
 
@@ -423,6 +424,8 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
         skipped = [dict(s, src_fid=s["src_fid"] + int(starts[k])) if sv.local_fid else s
                    for k, sv in enumerate(surveys) for s in sv.skipped]
         recorded = merge([m for sv in surveys for m in sv.messages])
+        # the scan pass reads and cleans the rows again: what the survey said, it says twice
+        surveyed = {m.key for m in recorded}
         warn_again(recorded, stacklevel=3)
         # the auto superelevation unit: decided once, on the whole layer's field
         bare_percent = auto_bare_percent(max(
@@ -485,7 +488,8 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
             report(f"partition {k}/{src.n}", 0.2 + 0.8 * k / src.n)
             top_up()
         timings["scan"] = round(time.perf_counter() - t, 4)
-        scan_messages = merge(scan_messages)  # once for the layer, counts added up
+        # once for the layer, counts added up
+        scan_messages = merge([m for m in scan_messages if m.key not in surveyed])
         if reword is not None:
             scan_messages = reword(scan_messages)
         warn_again(scan_messages, stacklevel=3)

@@ -465,6 +465,10 @@ def test_partitioned_warnings_are_the_single_process_warnings(cluster):
     net["aadt"] = 1000.0
     net.loc[net.index[40], "aadt"] = np.nan
     kw = {"speed_field": "maxspeed", "aadt_field": "aadt"}
+    # a vertex without coordinates: warned by the first pass, which reads every row once
+    xy = shapely.get_coordinates(net.geometry.iloc[50])
+    xy = np.insert(xy, len(xy) // 2, np.nan, axis=0)
+    net.loc[net.index[50], "geometry"] = shapely.LineString(xy)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         one = scan(net, **kw)
@@ -475,6 +479,7 @@ def test_partitioned_warnings_are_the_single_process_warnings(cluster):
     assert any("mixes units" in w for w in lines)
     assert any(w.startswith("AssumptionWarning: superelevation assumed") for w in lines)
     assert f"1 of {len(net)} features have no value in AADT field 'aadt'" in "".join(lines)
+    assert sum("1 vertices with non-finite coordinates" in w for w in lines) == 1
     for parted in runs:
         assert parted.run["timings_s"]["partitions"] >= 6
         assert sorted(parted.run["warnings"]) == sorted(lines)

@@ -192,7 +192,7 @@ def test_geojson_line_of_one_point_is_skipped_not_a_crash(tmp_path, partitioned)
     assert covered == {0} and skipped == {1: "empty or missing geometry"}
 
 
-def test_geoparquet_with_an_invalid_geometry_is_read(tmp_path):
+def _geoparquet_with_one_point_line(path):
     import json
     import struct
 
@@ -205,12 +205,33 @@ def test_geoparquet_with_an_invalid_geometry_is_read(tmp_path):
                       "geometry": pa.array([good, one_point], pa.binary())})
     geo = {"version": "1.0.0", "primary_column": "geometry",
            "columns": {"geometry": {"encoding": "WKB", "geometry_types": ["LineString"]}}}
-    pq.write_table(table.replace_schema_metadata({b"geo": json.dumps(geo).encode()}),
-                   tmp_path / "roads.parquet")
+    pq.write_table(table.replace_schema_metadata({b"geo": json.dumps(geo).encode()}), path)
+
+
+def test_geoparquet_with_an_invalid_geometry_is_read(tmp_path):
+    _geoparquet_with_one_point_line(tmp_path / "roads.parquet")
     res = _quiet_scan(str(tmp_path / "roads.parquet"))
     assert res.run["input_crs"] == "OGC:CRS84"  # GeoParquet's default where none is given
     covered, skipped = _accounted(res)
     assert covered == {0} and skipped == {1: "empty or missing geometry"}
+
+
+def test_geoparquet_folder_with_an_invalid_geometry_is_read(tmp_path):
+    """A partitioned GeoParquet folder (one partition per file): the partition holding a
+    line of one point is read again as plain Parquet, that row skipped, warned once."""
+    folder = tmp_path / "roads"
+    folder.mkdir()
+    shapes = gpd.GeoDataFrame({"maxspeed": ["70"]}, geometry=[shapely.LineString(
+        [(8.52, 47.3), (8.521, 47.301), (8.522, 47.3)])], crs="OGC:CRS84")
+    shapes.to_parquet(folder / "a.parquet")
+    _geoparquet_with_one_point_line(folder / "b.parquet")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = curvescan.scan(str(folder))
+    unread = [w for w in caught if "geometries could not be read" in str(w.message)]
+    assert [str(w.message)[:2] for w in unread] == ["1 "]
+    assert res.run["input_features"] == 3
+    assert [s["reason"] for s in res.run["skipped"]] == ["empty or missing geometry"]
 
 
 @pytest.mark.parametrize("ext", ["gpkg", "geojson"])

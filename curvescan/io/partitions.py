@@ -80,6 +80,7 @@ class PartitionSource:
     ranges: list[tuple[int, int]] = field(default_factory=list)
     parts: list[Any] = field(default_factory=list)  # dask delayed objects or frames
     columns: list[str] = field(default_factory=list)
+    geometry: str | None = None  # geometry column of a ``parquet`` source
 
     def payload(self, i: int) -> Any:
         """Return what a task needs besides this description to read partition ``i``.
@@ -88,6 +89,19 @@ class PartitionSource:
         which dask resolves when it is passed as a task argument); else None.
         """
         return self.parts[i] if self.kind == "frame" else None
+
+    def _read_wkb(self, i: int) -> gpd.GeoDataFrame:
+        """Partition ``i`` of a GeoParquet folder read as plain Parquet (dask makes the same
+        partitions), its invalid geometries missing (warned)."""
+        import dask.dataframe as dd
+
+        from .vector import geometries_from_wkb
+
+        raw = dd.read_parquet(self.path).partitions[i].compute(scheduler="sync")
+        geoms = geometries_from_wkb(np.asarray(raw.pop(self.geometry), dtype=object),
+                                    stacklevel=4)
+        return gpd.GeoDataFrame(raw, geometry=gpd.GeoSeries(geoms, index=raw.index),
+                                crs=self.crs)
 
     def light(self) -> "PartitionSource":
         """Return the description without in-memory slices (cheap to send with every task)."""
@@ -100,7 +114,10 @@ class PartitionSource:
         """Partition ``i``; ``src_fid`` is present for ``ogr`` and ``frame`` sources."""
         if self.kind == "parquet":
             try:
-                frame = self.parts[i].compute(scheduler="sync")
+                try:
+                    frame = self.parts[i].compute(scheduler="sync")
+                except shapely.errors.GEOSException:  # a geometry GEOS refuses
+                    frame = self._read_wkb(i)
             except (ValueError, OSError) as exc:
                 raise DataSourceError(_first_line(f"cannot read {self.path}: {exc}")) from None
             if "src_fid" in frame.columns and not usable_ids(frame["src_fid"]):
@@ -189,7 +206,8 @@ def _parquet(path: str) -> PartitionSource:
     if spatial is not None and len(spatial) == ddf.npartitions:
         bounds = np.asarray(spatial.total_bounds, dtype=float)
     return PartitionSource("parquet", path, ddf.crs, bounds, ddf.npartitions,
-                           parts=list(ddf.to_delayed()), columns=list(ddf.columns))
+                           parts=list(ddf.to_delayed()), columns=list(ddf.columns),
+                           geometry=ddf.geometry.name)
 
 
 def _in_process(client: Any) -> bool:

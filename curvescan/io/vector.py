@@ -149,6 +149,7 @@ def read_ogr(path: str, **kwargs: Any) -> gpd.GeoDataFrame:
     fid_name = names[0]  # return_fids puts the FIDs first
     blobs = table[geom_name].to_numpy(zero_copy_only=False)
     geoms, counts = curved.from_wkb(blobs)
+    _warn_unreadable(blobs, geoms, stacklevel=3)
     frame = table.drop_columns([fid_name, geom_name]).to_pandas()
     frame.index = pd.Index(table[fid_name].to_numpy(), name=None)
     if counts:
@@ -156,13 +157,24 @@ def read_ogr(path: str, **kwargs: Any) -> gpd.GeoDataFrame:
         warnings.warn(f"{sum(counts.values())} curved geometries ({what}) read as lines: "
                       f"arcs stroked every {curved.ARC_STEP_DEG:g} degree of turn",
                       DataQualityWarning, stacklevel=2)
+    return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, index=frame.index),
+                            crs=meta["crs"])
+
+
+def geometries_from_wkb(blobs: Any, stacklevel: int = 2) -> Any:
+    """Geometries of WKB ``blobs``; those GEOS refuses (a line of one point) become missing,
+    counted in a warning."""
+    geoms, _ = curved.from_wkb(blobs)
+    _warn_unreadable(blobs, geoms, stacklevel + 1)
+    return geoms
+
+
+def _warn_unreadable(blobs: Any, geoms: Any, stacklevel: int) -> None:
     unreadable = int(sum(b is not None for b in blobs[pd.isna(geoms)]))
     if unreadable:
         warn_counted("{unreadable} geometries could not be read (invalid, e.g. a line of one "
                      "point) and are skipped as missing", DataQualityWarning,
-                     {"unreadable": unreadable}, stacklevel=2)
-    return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, index=frame.index),
-                            crs=meta["crs"])
+                     {"unreadable": unreadable}, stacklevel=stacklevel + 1)
 
 
 #: Why ``--where`` is refused on a source GDAL does not read.
@@ -205,13 +217,7 @@ def _read_parquet_wkb(path: str) -> gpd.GeoDataFrame:
     meta = json.loads(table.schema.metadata[b"geo"])
     name = meta["primary_column"]
     crs = meta["columns"][name].get("crs", "OGC:CRS84")  # the GeoParquet default
-    blobs = table[name].to_numpy(zero_copy_only=False)
-    geoms, _ = curved.from_wkb(blobs)
-    unreadable = int(sum(b is not None for b in blobs[pd.isna(geoms)]))
-    if unreadable:
-        warn_counted("{unreadable} geometries could not be read (invalid, e.g. a line of one "
-                     "point) and are skipped as missing", DataQualityWarning,
-                     {"unreadable": unreadable}, stacklevel=4)
+    geoms = geometries_from_wkb(table[name].to_numpy(zero_copy_only=False), stacklevel=4)
     frame = table.drop_columns([name]).to_pandas().reset_index(drop=True)
     crs = None if crs is None else pyproj.CRS.from_user_input(crs)
     return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, index=frame.index), crs=crs)
