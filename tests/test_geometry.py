@@ -384,6 +384,19 @@ def test_a_flat_arc_whose_seed_settles_on_a_flatter_circle_is_retried():
     assert within >= 0.9 * found
 
 
+def _noisy_benchmark_road(road: int):
+    """Alignment and vertices of road ``road`` of the accuracy benchmark's noisy scenario
+    (seed 1): roads are drawn in order from one generator, vertices from their own."""
+    from curvescan.synthetic import random_alignment
+
+    rng = np.random.default_rng(1)
+    for _ in range(road + 1):
+        al = random_alignment(rng, n_curves=6)
+    xy, _ = vertices(al, np.random.default_rng(100_003 + road), jitter=(5.0, 25.0),
+                     noise_m=0.5)
+    return al, xy
+
+
 def test_a_short_sharp_arc_on_three_vertices_is_kept_for_its_turn():
     """An arc of 87 m radius and 56 m (37 degrees) between a tangent and a long flat curve,
     on 0.5 m noise and 5-25 m vertices (road 189 of the noisy accuracy scenario, seed 1):
@@ -391,13 +404,7 @@ def test_a_short_sharp_arc_on_three_vertices_is_kept_for_its_turn():
     standard deviations from straight), and the curve was dropped. The heading change
     from one window before it to one window after is 28 standard deviations: it is kept.
     Truth: the generator's own alignment."""
-    from curvescan.synthetic import random_alignment
-
-    rng = np.random.default_rng(1)
-    for _ in range(190):  # the scenario's roads 0-189, drawn in order
-        al = random_alignment(rng, n_curves=6)
-    xy, _ = vertices(al, np.random.default_rng(100_003 + 189), jitter=(5.0, 25.0),
-                     noise_m=0.5)
+    al, xy = _noisy_benchmark_road(189)
     truth = al.truth()
     arc = truth.iloc[0]
     assert arc["radius_m"] == pytest.approx(86.7, abs=0.1)  # the case this test is about
@@ -409,6 +416,23 @@ def test_a_short_sharp_arc_on_three_vertices_is_kept_for_its_turn():
     assert hit["radius_m"].iloc[0] < 150.0
     # and no curve is made of the tangents around it
     assert len(c) <= len(truth) + 1
+
+
+def test_a_sharp_arc_between_two_flat_ones_is_not_lost_in_the_peel_gaps():
+    """Road 197 of the noisy accuracy scenario (seed 1): an arc of 1263 m, 112 m of
+    tangent, then a compound curve of 147 m (121 m, 47 degrees) and 355 m radius. The flat
+    arcs are read with wide curvature windows; the stretch skipped beside each found arc
+    was that wide window and swallowed the whole sharp arc. Truth: the generator's own
+    alignment."""
+    al, xy = _noisy_benchmark_road(197)
+    truth = al.truth()
+    arc = truth[(truth["radius_m"] - 147.2).abs() < 0.1].iloc[0]  # the case of this test
+    c = _curves([xy + [540_000.0, 5_054_000.0]]).curves
+    mid = 0.5 * (arc["circ_start_m"] + arc["circ_end_m"])
+    hit = c[(c["circ_start_m"] <= mid) & (c["circ_end_m"] >= mid)]
+    assert len(hit) == 1
+    assert hit["radius_m"].iloc[0] == pytest.approx(147.2, rel=0.1)
+    assert hit["deflection_deg"].iloc[0] == pytest.approx(arc["circ_deflection_deg"], rel=0.2)
 
 
 @pytest.mark.parametrize("radius,deflection,spiral", [(120.0, 50.0, 60.0), (80.0, 60.0, 40.0)])

@@ -12,7 +12,8 @@ Works on "pieces" (station ranges of one sign of curvature), all at once:
    circle is refitted on what it grew over. Tangent vertices the tolerance let in at
    either end (they flatten the circle) are shed where a tangent line explains them better.
 4. **Peel**: what is left of the piece on either side of the circular part (beyond the
-   curvature window, which blurs the join) becomes a new piece. In later rounds a piece
+   curvature window, which blurs the join, at most :data:`PEEL_MAX_SCALE`'s) becomes a
+   new piece. In later rounds a piece
    becomes a circular part only when its curvature is a plateau, not a ramp: this finds
    the second arc of a compound curve but not a transition. Where a later piece's grown
    circle fails that test, the longest run of 8 down to 4 vertices right next to the part
@@ -51,6 +52,11 @@ CONSENSUS_SIGMAS = 2.5
 #: Share of the curvature half window skipped beyond a circular part before peeling: the
 #: window blurs the join with whatever follows.
 PEEL_GAP = 1.0
+#: ... at most at this scale (index into the scales): a flat arc is read with a wide window,
+#: but a sharp arc next to it is read with a narrow one, and a gap of the flat arc's wide
+#: window could swallow all of it (a 121 m arc of 147 m radius between arcs of 1263 and
+#: 357 m was lost in the gaps of both).
+PEEL_MAX_SCALE = 1
 #: Share of the half-curvature stretch that a later-round circular part must cover.
 PIECE_COVER = 0.5
 #: Vertices a seed fit takes at least (where the piece has them).
@@ -431,7 +437,7 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
                     "round": np.full(accept.sum(), rnd),
                     **{k: getattr(fit, k)[accept] for k in fields}})
         # peel: the rest of each piece beyond the curvature window on either side
-        gap = PEEL_GAP * prof.half_m[scale, chain]
+        gap = PEEL_GAP * prof.half_m[np.minimum(scale, PEEL_MAX_SCALE), chain]
         left_end = _station_at(prof, lo - gap, "right") - 1
         right_start = _station_at(prof, hi + gap, "left")
         found = np.ones(len(accept), dtype=bool)
