@@ -22,7 +22,7 @@ def run_scan(source: Any, output: Any = None, *, dem: Any = None, overwrite: boo
     if output is not None:
         from .io.vector import check_output_path
 
-        check_output_path(output, overwrite)  # fail before the work, not after
+        check_output_path(output, overwrite, suffix=".gpkg")  # fail before the work
         from .config import make_config
         from .parallel import scan_to_gpkg, wants_partitions
 

@@ -89,6 +89,16 @@ def _text_columns(frame: Any) -> Any:
     return frame.assign(**text) if text else frame
 
 
+def check_output_crs(setting: str) -> Any:
+    """The CRS an ``output_crs`` setting names (None for ``input`` / ``working``), or a
+    one-line :class:`~curvescan.errors.CRSError` (called before the scan, not after it)."""
+    if setting in ("input", "working"):
+        return None
+    from .read import parse_crs
+
+    return parse_crs(setting, what="--output-crs")
+
+
 def output_crs(working: Any, input_crs: Any, setting: str) -> tuple[Any, Any]:
     """The CRS of the output layers (``output_crs`` setting) and how to get there.
 
@@ -97,7 +107,7 @@ def output_crs(working: Any, input_crs: Any, setting: str) -> tuple[Any, Any]:
     """
     if setting == "working":
         return working, None
-    target = input_crs if setting == "input" else setting
+    target = input_crs if setting == "input" else check_output_crs(setting)
     if target is None:
         return working, None
     import pyproj

@@ -265,7 +265,17 @@ def _client(config: Any):
 
         raise InputError("partitioned scans need dask: pip install 'curvescan[dask]'") from None
     if config.scheduler:
-        return Client(config.scheduler, timeout="30s"), None
+        try:
+            return Client(config.scheduler, timeout="30s"), None
+        except (OSError, ValueError, TypeError, MemoryError) as exc:
+            # a refused or timed-out connection, an address without a port, or a service
+            # that is no dask scheduler (its first bytes read as a huge message length)
+            from .errors import DataSourceError
+
+            text = ("the reply is not dask's protocol" if isinstance(exc, MemoryError)
+                    else str(exc).splitlines()[0] if str(exc) else type(exc).__name__)
+            raise DataSourceError(f"cannot connect to the dask scheduler {config.scheduler!r}"
+                                  f" (--scheduler): {text}") from None
     processes = config.workers > 1
     import logging
 
@@ -394,6 +404,9 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
     from distributed import as_completed
 
     from .errors import DataQualityWarning, InputError
+    from .export import check_output_crs
+
+    check_output_crs(config.output_crs)  # fail before the work, not after
     from .io.partitions import open_partitions
     from .prepare import _reason_summary
     from .terrain_attr import auto_bare_percent

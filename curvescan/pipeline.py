@@ -33,7 +33,8 @@ from .attributes import (
 from .cautions import CAUTION
 from .config import SCAN_PARAMETERS, make_config
 from .errors import DataQualityWarning, InputError
-from .export import CONTRACT_FIELDS, order_columns, output_crs, run_table, write_gpkg
+from .export import (CONTRACT_FIELDS, check_output_crs, order_columns, output_crs, run_table,
+                     write_gpkg)
 from .geometry import chord_tolerance_for, find_curves
 from .geometry.pieces import substrings
 from .geometry.resample import global_measure, interpolate
@@ -182,6 +183,7 @@ def scan(source: Any, *, dem: str | os.PathLike | None = None,
     """
     config = parameters.pop("config", None)
     config = make_config(config, **parameters)
+    check_output_crs(config.output_crs)  # fail before the work, not after
     from . import parallel
 
     if parallel.wants_partitions(source, config):

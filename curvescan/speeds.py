@@ -70,7 +70,10 @@ def load_speed_table(path: str | None = None) -> dict[str, dict[str, str]]:
     def read(p: Path) -> dict[str, Any]:
         try:
             with open(p, "rb") as fh:
-                return tomllib.load(fh)
+                return tomllib.loads(fh.read().decode("utf-8-sig"))  # a byte-order mark too
+        except UnicodeDecodeError as exc:
+            raise ConfigError(f"implicit speeds file {p}: not UTF-8 text (byte {exc.start}); "
+                              "save it as UTF-8") from None
         except (OSError, tomllib.TOMLDecodeError) as exc:
             raise ConfigError(f"implicit speeds file {p}: {exc}") from None
 
@@ -82,7 +85,10 @@ def load_speed_table(path: str | None = None) -> dict[str, dict[str, str]]:
             raise ConfigError(f"implicit speeds file {source}: unknown table(s) "
                               f"{', '.join(sorted(unknown))}; use [speeds] and [keywords]")
         for part in table:
-            for key, value in dict(data.get(part, {})).items():
+            if not isinstance(data.get(part, {}), dict):
+                raise ConfigError(f"implicit speeds file {source}: '{part}' must be a table "
+                                  f"([{part}] with key = \"value\" lines)")
+            for key, value in data.get(part, {}).items():
                 if not isinstance(value, (str, int, float)):
                     raise ConfigError(f"implicit speeds file {source}: {key} = {value!r} is "
                                       "not a speed")

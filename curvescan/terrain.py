@@ -381,6 +381,10 @@ def _measure(
 
     lane_w = width / lanes
     coarse = info.cell_m * config.dem_min_cells_per_lane > lane_w
+    # integer elevations in steps coarser than the residual allowed (whole metres) flatten
+    # the cross-sections: a fit of the steps is "good" and near zero, but not measured
+    stepped = info.value_step_m > config.dem_max_residual_m
+    coarse = coarse | stepped
     quality = np.full(n, "good", dtype=object)
     quality[coverage < 0.95] = "partial"
     quality[~enough] = "nodata"
@@ -423,7 +427,14 @@ def _measure(
         warn_counted("DEM nodata holes or edges in the cross-sections of {partial} curve(s); "
                      "fitted from the remaining samples", DataQualityWarning,
                      {"partial": bad_counts["partial"]}, stacklevel=3)
-    if bad_counts["coarse"]:
+    if bad_counts["coarse"] and stepped:
+        warn_counted("DEM elevations stored in steps of {step} m (an integer band) cannot "
+                     "resolve lane cross-slope (steps above --dem-max-residual-m {residual} m) "
+                     "for {coarse} curve(s); superelevation assumed, grade from the DEM",
+                     DataQualityWarning, {"coarse": bad_counts["coarse"]},
+                     {"step": f"{info.value_step_m:g}", "residual": config.dem_max_residual_m},
+                     stacklevel=3)
+    elif bad_counts["coarse"]:
         warn_counted("DEM cells of {cell} m cannot resolve lane cross-slope (needs {cells} "
                      "cells per lane) for {coarse} curve(s); superelevation assumed, grade "
                      "from the DEM", DataQualityWarning, {"coarse": bad_counts["coarse"]},

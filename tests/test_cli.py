@@ -176,3 +176,68 @@ def test_a_layer_without_a_speed_field_says_so(runner, tmp_path, curve_layer):
     assert "--speed-field" in res.output
     curves = pyogrio.read_dataframe(out, layer="curves")
     assert len(curves) == 1 and curves["posted_kmh"].isna().all()
+
+
+def test_output_must_be_named_as_a_geopackage(runner, roads_file, tmp_path):
+    # a GeoPackage written under out.shp (or with no extension) misleads whoever opens it
+    for name in ("out.shp", "out"):
+        res = runner.invoke(main, ["scan", str(roads_file), "-o", str(tmp_path / name)])
+        assert res.exit_code == 1 and "ending in .gpkg" in res.output
+        assert not (tmp_path / name).exists()
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(tmp_path / "OUT.GPKG")])
+    assert res.exit_code == 0, res.output
+
+
+def test_folder_the_permission_bits_allow_but_refuses_a_file(runner, roads_file, tmp_path,
+                                                             monkeypatch):
+    # root, a read-only mount or an ACL: os.access says yes, creating a file fails
+    import curvescan.io.vector as vector
+
+    def refuse(*args, **kwargs):
+        raise PermissionError(13, "Permission denied")
+
+    monkeypatch.setattr(vector.tempfile, "mkstemp", refuse)
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(tmp_path / "o.gpkg")])
+    assert res.exit_code == 1 and "output folder is not writable" in res.output
+    assert res.exception is None or isinstance(res.exception, SystemExit)
+
+
+def test_bad_output_crs_is_one_line_before_the_scan(runner, roads_file, tmp_path):
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(tmp_path / "o.gpkg"),
+                               "--output-crs", "EPSG:nonsense"])
+    assert res.exit_code == 1, res.output
+    assert "--output-crs 'EPSG:nonsense' is not a valid CRS" in res.output
+    assert len(res.output.strip().splitlines()) == 1
+
+
+def test_scheduler_that_cannot_be_reached_is_one_line(runner, roads_file, tmp_path):
+    pytest.importorskip("distributed")
+    import socket
+    import threading
+
+    res = runner.invoke(main, ["scan", str(roads_file), "-o", str(tmp_path / "o.gpkg"),
+                               "--scheduler", "nohost"])
+    assert res.exit_code == 1, res.output
+    assert "cannot connect to the dask scheduler 'nohost'" in res.output
+    # a service that is no dask scheduler (a web server): its reply read as a message
+    # length asked numpy for exabytes, which the command line called "out of memory"
+    server = socket.create_server(("127.0.0.1", 0))
+
+    def answer():
+        try:
+            conn, _ = server.accept()
+        except OSError:
+            return
+        with conn:
+            conn.sendall(b"HTTP/1.1 400 Bad Request\r\nContent-Length: 0\r\n\r\n" * 4)
+
+    threading.Thread(target=answer, daemon=True).start()
+    address = "tcp://127.0.0.1:%d" % server.getsockname()[1]
+    try:
+        res = runner.invoke(main, ["scan", str(roads_file), "-o", str(tmp_path / "o.gpkg"),
+                                   "--scheduler", address])
+    finally:
+        server.close()
+    assert res.exit_code == 1, res.output
+    assert "cannot connect to the dask scheduler" in res.output
+    assert "out of memory" not in res.output

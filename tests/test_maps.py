@@ -75,6 +75,12 @@ def test_map_profile_hazards_commands(runner, demo_gpkg, tmp_path):
     assert res.exit_code == 1 and "not found" in res.output
     res = runner.invoke(main, ["profile", str(demo_gpkg), "-o", str(tmp_path / "q.png")])
     assert res.exit_code == 2
+    # an extension matplotlib cannot write: a usage error, not a traceback after drawing
+    res = runner.invoke(main, ["map", str(demo_gpkg), "-o", str(tmp_path / "m.txt")])
+    assert res.exit_code == 2 and "cannot write an image as '.txt'" in res.output
+    res = runner.invoke(main, ["profile", str(demo_gpkg), "--road", name, "-o",
+                               str(tmp_path / "p")])
+    assert res.exit_code == 2 and "no extension" in res.output
 
 
 def test_hazards_csv_and_geojson(runner, demo_gpkg, tmp_path):

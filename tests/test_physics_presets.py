@@ -110,11 +110,37 @@ def test_user_condition_and_vehicle_reach_the_stage(user_file):
         ("[trucks.v]\nrollover_threshold_g = 0.5", "unknown top-level"),
         ("conditions = 3", "must be a table"),
         ("[conditions]\nx = 3", r"\[conditions.x\] must be a table"),
+        ("[conditions.x]\nfriction = 0.3\nsource = 's'\nspeed_gradient_png = 'a'",
+         "speed_gradient_png must be a number"),
+        ("[conditions.x]\nfriction = 0.3\nsource = 's'\nreference_speed_kmh = '60'",
+         "reference_speed_kmh must be a number"),
+        # their columns would be those of the comfort or rollover limit, or of dry's band
+        ("[conditions.comfort]\nfriction = 0.3\nsource = 's'", "'comfort' is reserved"),
+        ("[conditions.rollover]\nfriction = 0.3\nsource = 's'", "'rollover' is reserved"),
+        ("[conditions.dry_low]\nfriction = 0.3\nsource = 's'", "'dry_low' is reserved"),
+        ("[conditions.Slush]\nfriction = 0.3\nsource = 's'\n"
+         "[conditions.slush]\nfriction = 0.2\nsource = 's'", "name the same preset"),
     ],
 )
 def test_malformed_preset_files(tmp_path, text, match):
     with pytest.raises(ConfigError, match=match):
         load_presets(_write(tmp_path, text))
+
+
+def test_preset_file_with_a_byte_order_mark_is_read(tmp_path):
+    path = tmp_path / "bom.toml"
+    path.write_bytes(b"\xef\xbb\xbf" + USER_TOML.encode())
+    assert load_presets(path).vehicle("gritter").rollover_threshold_g == 0.42
+
+
+def test_preset_file_not_in_utf8_is_one_clear_error(tmp_path):
+    path = tmp_path / "latin1.toml"
+    path.write_bytes("[vehicles.v]\nrollover_threshold_g = 0.5\nsource = 'caf\u00e9'\n"
+                     .encode("latin-1"))
+    with pytest.raises(ConfigError, match="not UTF-8 text"):
+        load_presets(path)
+    result = CliRunner().invoke(vehicles_command, ["--presets-file", str(path)])
+    assert result.exit_code == 1 and "not UTF-8 text" in result.output
 
 
 def test_missing_preset_file(tmp_path):

@@ -96,6 +96,20 @@ def test_bad_table_file_is_a_config_error(tmp_path):
         load_speed_table(str(path2))
 
 
+def test_table_file_in_another_encoding_or_shape_is_a_config_error(tmp_path):
+    latin1 = tmp_path / "latin1.toml"
+    latin1.write_bytes('[keywords]\n"caf\u00e9" = "20"\n'.encode("latin-1"))
+    with pytest.raises(ConfigError, match="not UTF-8 text"):
+        load_speed_table(str(latin1))
+    flat = tmp_path / "flat.toml"
+    flat.write_text("speeds = 3\n")
+    with pytest.raises(ConfigError, match="'speeds' must be a table"):
+        load_speed_table(str(flat))
+    bom = tmp_path / "bom.toml"
+    bom.write_bytes(b"\xef\xbb\xbf" + b'[speeds]\n"XX:rural" = "77"\n')
+    assert load_speed_table(str(bom))["speeds"]["xx:rural"] == "77"
+
+
 def test_none_speed_setting():
     out, rep = parse_speeds(["none", "50"], none_kmh=130.0)
     assert out == pytest.approx([130.0, 50.0])

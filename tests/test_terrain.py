@@ -72,7 +72,7 @@ def test_tilted_plane_superelevation_and_grade(tmp_path):
 def test_dem_in_another_crs_is_sampled_by_transforming_points(tmp_path):
     # same transverse Mercator as UTM 33N but false easting 0: a pure shift of 500 km
     shifted = "+proj=tmerc +lat_0=0 +lon_0=15 +k=0.9996 +x_0=0 +y_0=0 +ellps=WGS84 +units=m"
-    z = plane_grid(GX, GY, X_LEFT - 500000, Y_TOP, 1.0, SHAPE)
+    z = plane_grid(GX, GY, X_LEFT, Y_TOP, 1.0, SHAPE)  # the same ground (elevations on Earth)
     dem = write_dem(str(tmp_path / "tm.tif"), z, Affine(1, 0, X_LEFT - 500000, 0, -1, Y_TOP),
                     shifted)
     out, _ = _run(dem)
@@ -245,3 +245,83 @@ def test_scan_decides_the_unit_on_every_feature_not_only_curves(curve_layer):
     assert res.curves["superelevation_source"].iloc[0] == "attribute"
     # the run record says how the field's bare numbers were read
     assert res.run["terrain"]["superelevation_field_unit"] == "percent"
+
+
+def test_integer_dem_in_whole_metres_cannot_give_superelevation(tmp_path):
+    # whole metres (int16, no scale): the cross-sections are flat steps, their fit "good"
+    # and near zero; the DEM is coarse for superelevation, grade still comes from it
+    _, dem = _plane(tmp_path, name="m.tif", dtype="int16")
+    out, caught = _run(dem)
+    assert list(out["dem_quality"]) == ["coarse", "coarse"]
+    assert list(out["superelevation_source"]) == ["assumed", "assumed"]
+    np.testing.assert_allclose(out["grade"], [GX, GX], atol=2e-3)
+    assert terrain.run_record(out)["dem_info"]["value_step_m"] == 1.0
+    assert any(issubclass(w.category, DataQualityWarning) and "steps of 1 m" in
+               str(w.message) for w in caught)
+
+
+def test_integer_dem_in_centimetres_is_not_coarse(tmp_path):
+    z = plane_grid(GX, GY, X_LEFT, Y_TOP, 1.0, SHAPE) * 100
+    path = write_dem(str(tmp_path / "cm.tif"), z, Affine(1, 0, X_LEFT, 0, -1, Y_TOP),
+                     "EPSG:32633", dtype="int32")
+    import rasterio
+
+    with rasterio.open(path, "r+") as ds:
+        ds.scales = (0.01,)
+    out, _ = _run(path)
+    assert list(out["dem_quality"]) == ["good", "good"]
+    assert terrain.run_record(out)["dem_info"]["value_step_m"] == pytest.approx(0.01)
+
+
+def test_undeclared_nodata_value_is_read_as_a_gap(tmp_path):
+    # -9999 in a strip, but no nodata value declared: read as elevations it made the
+    # grade and cross-slopes absurd; now a gap, with a counted warning
+    z = plane_grid(GX, GY, X_LEFT, Y_TOP, 1.0, SHAPE)
+    z[:, 200:230] = -9999.0
+    dem = write_dem(str(tmp_path / "undeclared.tif"), z, Affine(1, 0, X_LEFT, 0, -1, Y_TOP),
+                    "EPSG:32633")
+    out, caught = _run(dem)
+    assert out["dem_quality"].iloc[0] == "partial"
+    assert out["superelevation"].iloc[0] == pytest.approx(E_LEFT, abs=2e-4)
+    assert out["grade"].iloc[0] == pytest.approx(GX, abs=2e-4)
+    assert terrain.run_record(out)["dem_info"]["points_implausible"] > 0
+    assert any(issubclass(w.category, DataQualityWarning) and "outside -500..9000 m" in
+               str(w.message) for w in caught)
+
+
+def test_colour_image_is_refused_as_a_dem(tmp_path):
+    import rasterio
+
+    path = str(tmp_path / "rgb.tif")
+    with rasterio.open(path, "w", driver="GTiff", width=300, height=200, count=3,
+                       dtype="uint8", crs="EPSG:32633", photometric="RGB",
+                       transform=Affine(1, 0, X_LEFT, 0, -1, Y_TOP)) as ds:
+        ds.write(np.full((3, 200, 300), 120, dtype="uint8"))
+    with pytest.raises(InputError, match="is an image") as exc:
+        _run(path)
+    assert "\n" not in str(exc.value)
+
+
+def test_dem_of_one_cell_is_refused(tmp_path):
+    # bilinear sampling of one cell gives the same value everywhere: a grade of 0 for
+    # every curve, reported as measured
+    dem = write_dem(str(tmp_path / "one.tif"), np.array([[100.0]]),
+                    Affine(2000, 0, X_LEFT, 0, -2000, Y_TOP), "EPSG:32633", blocksize=16,
+                    tiled=False)
+    with pytest.raises(InputError, match="1 x 1 cell"):
+        _run(dem)
+
+
+def test_dem_in_a_feet_crs_without_a_vertical_unit_warns(tmp_path):
+    ft = 0.3048
+    utm_ft = "+proj=utm +zone=33 +datum=WGS84 +units=ft +no_defs"
+    z = plane_grid(GX, GY, X_LEFT, Y_TOP, 1.0, SHAPE)  # metres, on a grid in feet
+    t = Affine(1 / ft, 0, X_LEFT / ft, 0, -1 / ft, Y_TOP / ft)
+    dem = write_dem(str(tmp_path / "ft_crs.tif"), z, t, utm_ft)
+    out, caught = _run(dem)
+    np.testing.assert_allclose(out["grade"], [GX, GX], atol=2e-4)
+    assert any(issubclass(w.category, AssumptionWarning) and "measured in feet" in
+               str(w.message) for w in caught)
+    _, caught = _run(write_dem(str(tmp_path / "ft_ft.tif"), z / ft, t, utm_ft),
+                     dem_vertical_unit="foot")
+    assert not any("measured in feet" in str(w.message) for w in caught)

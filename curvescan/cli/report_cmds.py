@@ -53,6 +53,17 @@ def _use_agg() -> None:
     matplotlib.use("Agg", force=True)
 
 
+def _check_image_name(output: str) -> None:
+    """Refuse (usage error) an image name whose extension matplotlib cannot write."""
+    from matplotlib.backend_bases import FigureCanvasBase
+
+    suffix = Path(output).suffix.lower()
+    formats = FigureCanvasBase.get_supported_filetypes()
+    if suffix[1:] not in formats:
+        raise click.UsageError(f"cannot write an image as {suffix or 'no extension'!r}; "
+                               f"name the output .png (or {', '.join(sorted(formats))})")
+
+
 @click.command("map", epilog=EPILOG, short_help="Draw an overview map PNG of a result.")
 @click.argument("result", type=click.Path(exists=True, dir_okay=False))
 @click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
@@ -69,6 +80,8 @@ def map_command(ctx: click.Context, result: str, output: str, overwrite: bool,
                 colour_by: str, labels: int, dpi: int) -> None:
     """Draw the curves of RESULT (a curvescan GeoPackage) on its road network as a PNG."""
     from ..maps import overview_map
+
+    _check_image_name(output)
 
     def run() -> Path:
         _output(output, overwrite)
@@ -104,6 +117,8 @@ def profile_command(ctx: click.Context, result: str, road: str | None, chain: in
     if (road is None) == (chain is None):
         raise click.UsageError("choose one road: --road NAME or --chain ID")
     from ..maps import profile_plot
+
+    _check_image_name(output)
 
     def run() -> Path:
         _output(output, overwrite)

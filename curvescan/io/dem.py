@@ -16,10 +16,12 @@ from typing import Any
 import numpy as np
 import rasterio
 from pyproj import CRS, Transformer
+from rasterio.enums import ColorInterp
 from rasterio.errors import RasterioError
 from rasterio.windows import Window
 
-from ..errors import CRSError, DataQualityWarning, DataSourceError, InputError
+from ..errors import AssumptionWarning, CRSError, DataQualityWarning, DataSourceError, InputError
+from ..recording import warn_counted
 
 __all__ = ["DemInfo", "sample_dem", "write_dem", "VERTICAL_UNITS"]
 
@@ -29,6 +31,14 @@ VERTICAL_UNITS: dict[str, float] = {"metre": 1.0, "foot": 0.3048}
 #: Largest window edge read at once (pixels); bounds memory per read to ~4 MB of float64.
 _MAX_TILE_PX = 2048
 _MIN_TILE_PX = 256
+
+#: Elevations (m) outside this range are no ground on Earth (the Dead Sea shore lies near
+#: -430 m, Everest at 8849 m; common knowledge): cells holding them are read as gaps
+#: (an undeclared nodata value such as -9999, or elevations in another unit).
+PLAUSIBLE_ELEVATION_M = (-500.0, 9000.0)
+
+#: Band colours of an image, not of an elevation model.
+_IMAGE_COLOURS = (ColorInterp.red, ColorInterp.green, ColorInterp.blue, ColorInterp.palette)
 
 
 @dataclass
@@ -58,6 +68,12 @@ class DemInfo:
         Total pixels read over all windows.
     points, points_inside, points_valid : int
         Sample points asked for, inside the raster extent, and with a valid value.
+    value_step_m : float
+        Smallest elevation step the stored values can express, metres (scale of an
+        integer band times the vertical unit; 0 for floating-point bands).
+    points_implausible : int
+        Sample points whose interpolation touched a cell outside
+        :data:`PLAUSIBLE_ELEVATION_M` (read as a gap).
     """
 
     path: str
@@ -73,6 +89,8 @@ class DemInfo:
     points: int = 0
     points_inside: int = 0
     points_valid: int = 0
+    value_step_m: float = 0.0
+    points_implausible: int = 0
     tile_px: tuple[int, int] = field(default=(0, 0))
 
     def as_dict(self) -> dict[str, Any]:
@@ -95,6 +113,28 @@ def _tile_shape(src: Any) -> tuple[int, int]:
     th = int(min(max(bh, _MIN_TILE_PX), _MAX_TILE_PX))
     tw = int(min(max(bw, _MIN_TILE_PX), _MAX_TILE_PX))
     return th, tw
+
+
+def _check_elevation_band(src: Any, path: str) -> None:
+    """Refuse rasters that cannot hold elevations: an image, or fewer than 2 x 2 cells."""
+    colour = src.colorinterp[0] if src.colorinterp else None
+    if colour in _IMAGE_COLOURS:
+        raise InputError(
+            f"DEM {path} is an image (band 1 holds {colour.name} values, {src.count} "
+            "band(s)), not an elevation model; give a single-band raster of elevations"
+        )
+    if src.width < 2 or src.height < 2:
+        raise InputError(
+            f"DEM {path} has {src.width} x {src.height} cell(s); at least 2 x 2 are needed "
+            "to interpolate elevations"
+        )
+
+
+def _feet(crs: CRS) -> bool:
+    """Whether the CRS's horizontal axes are measured in feet."""
+    units = [(a.unit_name or "").lower() for a in crs.axis_info
+             if a.direction not in ("up", "down")]
+    return any("foot" in u or "feet" in u for u in units)
 
 
 def _declared_vertical_unit(crs: CRS) -> str | None:
@@ -150,7 +190,8 @@ def sample_dem(
     CRSError
         The raster has no CRS, or the points' CRS is unknown.
     InputError
-        ``vertical_unit`` is not one of :data:`VERTICAL_UNITS`.
+        ``vertical_unit`` is not one of :data:`VERTICAL_UNITS`; the raster is an image
+        (band 1 red, green, blue or a palette) or has fewer than 2 x 2 cells.
     """
     if vertical_unit not in VERTICAL_UNITS:
         raise InputError(
@@ -168,6 +209,7 @@ def sample_dem(
                 f"DEM {path} has no coordinate reference system; assign one "
                 "(for example gdal_edit.py -a_srs EPSG:XXXX) and run again"
             )
+        _check_elevation_band(src, path)
         dem_crs = CRS.from_wkt(src.crs.to_wkt())
         declared = _declared_vertical_unit(dem_crs)
         if declared is not None and declared != vertical_unit:
@@ -175,6 +217,14 @@ def sample_dem(
                 f"DEM {path} declares vertical unit {declared} but {vertical_unit} was "
                 "requested; using the requested unit",
                 DataQualityWarning,
+                stacklevel=3,
+            )
+        elif declared is None and vertical_unit == "metre" and _feet(dem_crs):
+            warnings.warn(
+                f"DEM {path} is in a CRS measured in feet and declares no vertical unit; "
+                "its elevations are read as metres (give --dem-vertical-unit foot if they "
+                "are feet)",
+                AssumptionWarning,
                 stacklevel=3,
             )
         if dem_crs == work_crs:
@@ -199,6 +249,11 @@ def sample_dem(
             points=int(x.size),
             tile_px=(th, tw),
         )
+        scale = src.scales[0] if src.scales else 1.0
+        offset = src.offsets[0] if src.offsets else 0.0
+        metres = VERTICAL_UNITS[vertical_unit]
+        if np.issubdtype(np.dtype(src.dtypes[0]), np.integer):
+            info.value_step_m = abs(scale) * metres
         inv = ~src.transform
         colf = inv.a * xd + inv.b * yd + inv.c
         rowf = inv.d * xd + inv.e * yd + inv.f
@@ -207,19 +262,33 @@ def sample_dem(
         idx = np.flatnonzero(inside)
         info.points_inside = int(idx.size)
         if idx.size:
-            z[idx] = _bilinear_by_tiles(src, colf[idx], rowf[idx], (th, tw), info)
-            scale = src.scales[0] if src.scales else 1.0
-            offset = src.offsets[0] if src.offsets else 0.0
-            z = (z * scale + offset) * VERTICAL_UNITS[vertical_unit]
+            # the plausible range in stored values (a negative scale swaps its ends)
+            lo, hi = sorted((m / metres - offset) / scale if scale else m
+                            for m in PLAUSIBLE_ELEVATION_M)
+            z[idx] = _bilinear_by_tiles(src, colf[idx], rowf[idx], (th, tw), info, (lo, hi))
+            z = (z * scale + offset) * metres
         info.points_valid = int(np.isfinite(z).sum())
+        warn_counted("{implausible} DEM sample(s) fell on cells with elevations outside "
+                     "{lo}..{hi} m (an undeclared nodata value such as -9999, or "
+                     "elevations in another unit: --dem-vertical-unit); those cells were "
+                     "read as gaps", DataQualityWarning,
+                     {"implausible": info.points_implausible},
+                     {"lo": f"{PLAUSIBLE_ELEVATION_M[0]:g}",
+                      "hi": f"{PLAUSIBLE_ELEVATION_M[1]:g}"},
+                     when=["implausible"], stacklevel=3)
         info.cell_m = _cell_size_m(src.transform, xd, yd, inside, back)
     return z, inside, info
 
 
 def _bilinear_by_tiles(
-    src: Any, colf: np.ndarray, rowf: np.ndarray, tile: tuple[int, int], info: DemInfo
+    src: Any, colf: np.ndarray, rowf: np.ndarray, tile: tuple[int, int], info: DemInfo,
+    plausible: tuple[float, float] = (-np.inf, np.inf),
 ) -> np.ndarray:
-    """Bilinear values at fractional pixel positions, one window read per tile group."""
+    """Bilinear values at fractional pixel positions, one window read per tile group.
+
+    Stored values outside ``plausible`` count as gaps (NaN); the points that touch one
+    are counted in ``info.points_implausible``.
+    """
     h, w = src.height, src.width
     cx = colf - 0.5
     cy = rowf - 0.5
@@ -251,12 +320,15 @@ def _bilinear_by_tiles(
         except RasterioError as exc:
             raise DataSourceError(f"cannot read DEM {src.name} window {win}: {exc}") from None
         arr = np.ma.filled(block.astype("float64"), np.nan)
+        odd = (arr < plausible[0]) | (arr > plausible[1])
+        arr[odd] = np.nan
         info.windows_read += 1
         info.cells_read += int(arr.size)
         rr0, rr1 = r0[sel] - rmin, r1[sel] - rmin
         cc0, cc1 = c0[sel] - cmin, c1[sel] - cmin
         wx, wy = tx[sel], ty[sel]
         acc = np.zeros(sel.size)
+        touched = np.zeros(sel.size, dtype=bool)
         for rr, cc, wt in (
             (rr0, cc0, (1 - wx) * (1 - wy)),
             (rr0, cc1, wx * (1 - wy)),
@@ -264,6 +336,8 @@ def _bilinear_by_tiles(
             (rr1, cc1, wx * wy),
         ):
             acc += np.where(wt > 0, wt * arr[rr, cc], 0.0)
+            touched |= (wt > 0) & odd[rr, cc]
+        info.points_implausible += int(touched.sum())
         out[sel] = acc
     return out
 

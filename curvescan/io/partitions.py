@@ -474,7 +474,7 @@ class GpkgAppender:
 
     def __init__(self, path: str | os.PathLike, *, overwrite: bool,
                  descriptions: Mapping[str, str]) -> None:
-        self.target = check_output_path(path, overwrite)
+        self.target = check_output_path(path, overwrite, suffix=".gpkg")
         fd, tmp = tempfile.mkstemp(prefix=f".{self.target.name}.", suffix=".part.gpkg",
                                    dir=self.target.parent)
         os.close(fd)

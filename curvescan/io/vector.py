@@ -223,9 +223,14 @@ def _read_parquet_wkb(path: str) -> gpd.GeoDataFrame:
     return gpd.GeoDataFrame(frame, geometry=gpd.GeoSeries(geoms, index=frame.index), crs=crs)
 
 
-def check_output_path(path: str | os.PathLike, overwrite: bool) -> Path:
-    """Refuse an existing output without ``overwrite`` and a folder that cannot be written."""
+def check_output_path(path: str | os.PathLike, overwrite: bool,
+                      suffix: str | None = None) -> Path:
+    """Refuse an existing output without ``overwrite``, a folder that cannot be written,
+    and (with ``suffix``, e.g. ``.gpkg``) a name with another extension."""
     target = Path(path)
+    if suffix is not None and target.suffix.lower() != suffix:
+        raise InputError(f"the output is a GeoPackage: give a file name ending in {suffix}, "
+                         f"not {target.name!r}")
     if target.exists() and not overwrite:
         raise OutputExistsError(f"output exists: {target} (use --overwrite to replace it)")
     folder = target.parent if str(target.parent) else Path(".")
@@ -233,6 +238,13 @@ def check_output_path(path: str | os.PathLike, overwrite: bool) -> Path:
         raise DataSourceError(f"output folder does not exist: {folder}")
     if not os.access(folder, os.W_OK):
         raise DataSourceError(f"output folder is not writable: {folder}")
+    try:  # os.access trusts the permission bits; a read-only mount or ACL still refuses
+        fd, probe = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".probe", dir=folder)
+    except OSError as exc:
+        raise DataSourceError(f"output folder is not writable: {folder} "
+                              f"({exc.strerror or exc})") from None
+    os.close(fd)
+    os.unlink(probe)
     return target
 
 
@@ -251,7 +263,7 @@ def write_layers(
     file replace the target in one rename. Frames without geometry become attribute
     tables.
     """
-    target = check_output_path(path, overwrite)
+    target = check_output_path(path, overwrite, suffix=".gpkg")
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part.gpkg", dir=target.parent)
     os.close(fd)
     os.unlink(tmp)

@@ -38,6 +38,11 @@ SPEED_DEPENDENCE_MAX_KMH = 130.0
 
 _NAME = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
 
+#: Names that would give a condition the columns of another limit (``v_comfort_kmh``,
+#: ``v_rollover_kmh``) or of another condition's band (``v_dry_low_kmh``).
+_RESERVED = ("comfort", "rollover")
+_RESERVED_ENDS = ("_low", "_high", "_limit")
+
 
 @dataclass(frozen=True)
 class Condition:
@@ -82,6 +87,12 @@ class Condition:
                 f"condition name {self.name!r} must be lower-case letters, digits or '_',"
                 " starting with a letter"
             )
+        if self.name in _RESERVED or self.name.endswith(_RESERVED_ENDS):
+            raise ConfigError(
+                f"condition name {self.name!r} is reserved: its speed columns would be those"
+                f" of another limit; names may not be {' or '.join(_RESERVED)} nor end in"
+                f" {', '.join(_RESERVED_ENDS)}"
+            )
         lo, hi = FRICTION_RANGE
         for key in ("friction", "friction_low", "friction_high"):
             value = getattr(self, key)
@@ -95,6 +106,11 @@ class Condition:
                 f"condition {self.name!r}: need friction_low <= friction <= friction_high"
                 f" (got {self.friction_low}, {self.friction}, {self.friction_high})"
             )
+        for key in ("speed_gradient_png", "reference_speed_kmh"):
+            value = getattr(self, key)
+            if not isinstance(value, (int, float)) or isinstance(value, bool):
+                raise ConfigError(f"condition {self.name!r}: {key} must be a number;"
+                                  f" got {value!r}")
         if not 0.0 <= self.speed_gradient_png <= 5.0:
             raise ConfigError(
                 f"condition {self.name!r}: speed_gradient_png must be in [0, 5] % per km/h"

@@ -138,9 +138,14 @@ def load_presets(path: str | Path | None = None) -> Presets:
     origin = str(path)
     try:
         with open(path, "rb") as fh:
-            doc = tomllib.load(fh)
+            raw = fh.read()
     except OSError as exc:
         raise ConfigError(f"{origin}: cannot read preset file ({exc.strerror or exc})") from None
+    try:
+        doc = tomllib.loads(raw.decode("utf-8-sig"))  # a byte-order mark some editors write
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"{origin}: not UTF-8 text (byte {exc.start}); save it as UTF-8"
+                          ) from None
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"{origin}: not valid TOML ({exc})") from None
     unknown = sorted(set(doc) - {"conditions", "vehicles"})
@@ -156,6 +161,11 @@ def load_presets(path: str | Path | None = None) -> Presets:
         section = doc.get(kind, {})
         if not isinstance(section, dict):
             raise ConfigError(f"{origin}: '{kind}' must be a table of [{kind}.NAME] tables")
+        seen: dict[str, str] = {}
         for name, table in section.items():
+            if name.lower() in seen:  # names are case-blind: the second would replace the first
+                raise ConfigError(f"{origin}: [{kind}.{seen[name.lower()]}] and [{kind}.{name}]"
+                                  " name the same preset (names are not case-sensitive)")
+            seen[name.lower()] = name
             target[name.lower()] = _from_table(cls, kind, name.lower(), table, origin, defaults)
     return Presets(conditions, vehicles, origin=f"built-in + {origin}")
