@@ -350,8 +350,10 @@ def evaluate(curves: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, chains: Any,
     curves = curves.join(winter_priority(curves, config, last=ring))
     hz = hazards(curves[~ring], config) if ring.any() else hazards(curves, config)
     cols = [c for c in WINTER_FIELDS if c in curves.columns] + ["geometry"]
-    winter = curves.loc[(curves["winter_score"] > 0).to_numpy() & ~ring, cols] \
-        .sort_values("winter_rank")
+    # the rows with a score, in rank order (ranks are unique), taken in one step
+    take = np.flatnonzero((curves["winter_score"] > 0).to_numpy() & ~ring)
+    take = take[np.argsort(curves["winter_rank"].to_numpy()[take], kind="stable")]
+    winter = curves.iloc[take, curves.columns.get_indexer(cols)]
     summary = run_summary(curves, hz, names, inputs, config, left_out=ring)
     return Assessment(curves=curves, hazards=hz, winter=winter, summary=summary)
 

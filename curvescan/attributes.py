@@ -10,11 +10,16 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
+import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
 from .geometry._ragged import expand
 from .geometry.resample import global_measure
+
+#: pandas' default text dtype (Arrow-backed, NaN for missing): what a column of Python
+#: strings is stored as.
+_STR = pd.StringDtype("pyarrow", na_value=np.nan)
 
 __all__ = ["rows_on", "src_fid_text", "reduce_rows", "reversed_at", "orient_to_features",
            "sorted_unique"]
@@ -66,17 +71,35 @@ def sorted_unique(values: np.ndarray) -> np.ndarray:
     return values[np.r_[True, values[1:] != values[:-1]]] if values.size else values
 
 
-def src_fid_text(groups: np.ndarray, rows: np.ndarray, src_fid: np.ndarray, n: int) -> np.ndarray:
-    """Comma-separated source ids per group, in ascending order."""
+def _lex_order(minor: np.ndarray, major: np.ndarray) -> np.ndarray | None:
+    """``np.lexsort((minor, major))``, or None where that is the identity (the pairs are in
+    order already, as :func:`rows_on` gives them): a linear check instead of a sort."""
+    minor, major = np.asarray(minor), np.asarray(major)
+    if len(major) < 2:
+        return None
+    step = major[1:] != major[:-1]
+    if np.all(major[1:] >= major[:-1]) and np.all(step | (minor[1:] >= minor[:-1])):
+        return None  # lexsort is stable: sorted pairs keep their order
+    return np.lexsort((minor, major))
+
+
+def src_fid_text(groups: np.ndarray, rows: np.ndarray, src_fid: np.ndarray, n: int) -> Any:
+    """Comma-separated source ids per group, in ascending order.
+
+    Returned as pandas' Arrow-backed ``str`` array (what a column of these texts becomes
+    in a DataFrame), made from the Arrow texts without Python strings in between.
+    """
     fids = np.asarray(src_fid)[rows]
-    order = np.lexsort((fids, groups))
-    g = np.asarray(groups)[order]
+    g = np.asarray(groups)
+    order = _lex_order(fids, g)
+    if order is not None:
+        g, fids = g[order], fids[order]
     counts = np.bincount(g, minlength=n)
     offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int32)
     # one vectorised join per group in Arrow (no Python per group)
-    text = pc.cast(pa.array(fids[order]), pa.string())
+    text = pc.cast(pa.array(fids), pa.string())
     joined = pc.binary_join(pa.ListArray.from_arrays(pa.array(offsets), text), ",")
-    return np.asarray(joined.to_numpy(zero_copy_only=False), dtype=object)
+    return pd.array(joined, dtype=_STR)
 
 
 def reduce_rows(groups: np.ndarray, rows: np.ndarray, values: np.ndarray, n: int,
@@ -94,10 +117,10 @@ def reduce_rows(groups: np.ndarray, rows: np.ndarray, values: np.ndarray, n: int
 def first_value(groups: np.ndarray, rows: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
     """The value of the lowest input row of each group (object array, None when absent)."""
     out = np.full(n, None, dtype=object)
-    order = np.lexsort((rows, groups))
-    g = groups[order]
+    order = _lex_order(rows, groups)
+    g, r = (groups, rows) if order is None else (groups[order], rows[order])
     first = np.r_[True, g[1:] != g[:-1]] if g.size else np.zeros(0, dtype=bool)
-    out[g[first]] = values[rows[order][first]]
+    out[g[first]] = values[r[first]]
     return out
 
 
@@ -134,7 +157,16 @@ def orient_to_features(layer: Any, against: np.ndarray) -> Any:
     layer = layer.copy(deep=False)  # copy-on-write: changed columns stay here
     flip = np.asarray(against, dtype=bool)
     for col in ("direction", "grade_max_down_direction", "approach_direction"):
-        if col in layer.columns:
+        if col in layer.columns and layer[col].dtype == _STR and layer[col].notna().any():
+            # in Arrow: the words swapped where flipped (nulls stay null), no Python strings
+            text = pa.chunked_array(pa.array(layer[col].array))
+            mask = pa.array(flip)
+            out = text
+            for word, other in _DIRECTION_WORDS.items():
+                out = pc.if_else(pc.and_(mask, pc.equal(text, word)), other, out)
+            layer[col] = pd.Series(pd.array(out.cast(text.type), dtype=_STR),
+                                   index=layer.index)
+        elif col in layer.columns:
             values = layer[col].to_numpy(dtype=object)
             out = values.copy()
             for word, other in _DIRECTION_WORDS.items():

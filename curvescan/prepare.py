@@ -290,20 +290,24 @@ def prepare(frame: gpd.GeoDataFrame, config: Any) -> Chains:
     project = None
     if frame.crs != crs:  # project the coordinates, not the geometries (no GEOS copies)
         project = pyproj.Transformer.from_crs(frame.crs, crs, always_xy=True).transform
-    coords, part_row, skipped = _clean_parts(np.asarray(frame.geometry.values, dtype=object),
-                                             frame, config, project)
+    coords, part_row, skipped, (seg, length) = _clean_parts(
+        np.asarray(frame.geometry.values, dtype=object), frame, config, project,
+        lengths=True)
     if part_row.size == 0:
         raise InputError("the input has no usable line geometries "
                          f"({len(skipped)} features skipped: {_reason_summary(skipped)})")
     screened = screen_parts(coords, frame["src_fid"].to_numpy()[part_row],
-                            join_groups(frame, config, part_row), config)
+                            join_groups(frame, config, part_row), config, length=length)
+    del length
     skipped = skipped + screened.skipped
     if skipped:
         warnings.warn(f"{len(skipped)} input features or parts skipped: "
                       f"{_reason_summary(skipped)}", DataQualityWarning, stacklevel=2)
+    if screened.dropped.any():
+        seg = seg[~screened.dropped[coords[1]]]
     coords, part_row = drop_parts(coords, part_row, screened.dropped)
     chains = _join(coords, part_row, screened.group, config.join_tolerance_m,
-                   config.through_junction_deg)
+                   config.through_junction_deg, seg=seg)
     chains.ring_rows = np.unique(part_row[screened.ring])
     chains.crs = crs
     chains.skipped = skipped
@@ -370,7 +374,7 @@ def drop_parts(parts: tuple[np.ndarray, np.ndarray], part_row: np.ndarray,
     xy, pid = parts
     keep_v = ~drop[pid]
     new_id = np.cumsum(~drop) - 1
-    return (xy[keep_v], new_id[pid[keep_v]]), part_row[~drop]
+    return (_rows(xy, keep_v), new_id[pid[keep_v]]), part_row[~drop]
 
 
 def _reason_summary(skipped: list[dict]) -> str:
@@ -378,11 +382,25 @@ def _reason_summary(skipped: list[dict]) -> str:
     return "; ".join(f"{n} {reason}" for reason, n in counts.items())
 
 
+def _rows(xy: np.ndarray, index: np.ndarray) -> np.ndarray:
+    """``xy[index]`` (an index or boolean array) of an ``(n, 2)`` float array.
+
+    A C-contiguous float64 array is moved as one 16-byte item per row (a complex view):
+    the same bytes, several times faster than numpy's row indexing of a 2-D array.
+    """
+    if xy.ndim == 2 and xy.shape[1] == 2 and xy.dtype == np.float64 and xy.flags.c_contiguous:
+        return xy.view(np.complex128)[:, 0][index].view(np.float64).reshape(-1, 2)
+    return xy[index]
+
+
 def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any,
-                 project: Any = None):
+                 project: Any = None, lengths: bool = False):
     """Explode to single lines, drop Z/M, repeated vertices and spikes; record rejects.
 
     ``project(x, y) -> (x, y)``, when given, transforms the vertices to the working CRS.
+    With ``lengths``, also returns ``(seg, length)``: the length of the segment from each
+    vertex to the next (the value beyond a part's last vertex is meaningless) and of each
+    part, as :func:`assemble` and :func:`part_shapes` would compute them.
     """
     src_fid = frame["src_fid"].to_numpy()
     skipped: list[dict] = []
@@ -405,6 +423,7 @@ def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any,
         keep_part = is_line & ~empty_part
         parts, part_row = parts[keep_part], part_row[keep_part]
     xy, vidx = shapely.get_coordinates(parts, return_index=True)  # 2D: Z/M dropped
+    n_coords = shapely.get_num_coordinates(parts)
     del parts
     if project is not None:
         px, py = project(xy[:, 0], xy[:, 1])
@@ -412,36 +431,49 @@ def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any,
         del px, py
     x, y = xy[:, 0], xy[:, 1]
     finite = np.isfinite(x) & np.isfinite(y)
-    n_finite = np.bincount(vidx[finite], minlength=len(part_row))
-    if not finite.all():
+    all_finite = bool(finite.all())
+    # vertices with finite coordinates per part (only read to word a skip reason)
+    n_finite = n_coords if all_finite else np.bincount(vidx[finite], minlength=len(part_row))
+    if not all_finite:
         warn_counted("{vertices} vertices with non-finite coordinates (NaN or infinite, or "
                      "beyond the range of the working CRS) removed from {features} features",
                      DataQualityWarning, {"vertices": int(np.count_nonzero(~finite)),
                                           "features": len(np.unique(part_row[vidx[~finite]]))},
                      stacklevel=3)
     # drop repeated vertices (and non-finite ones)
-    drop = ~finite
-    drop[1:] |= ((vidx[1:] == vidx[:-1]) & (np.abs(x[1:] - x[:-1]) < 1e-6)
-                 & (np.abs(y[1:] - y[:-1]) < 1e-6))
-    if not finite.all():  # a repeat is judged against the previous finite vertex
-        xy, vidx = xy[finite], vidx[finite]
-        x, y = xy[:, 0], xy[:, 1]
-        drop = np.zeros(len(xy), dtype=bool)
-        drop[1:] = ((vidx[1:] == vidx[:-1]) & (np.abs(x[1:] - x[:-1]) < 1e-6)
-                    & (np.abs(y[1:] - y[:-1]) < 1e-6))
+    del x, y
+    if not all_finite:  # a repeat is judged against the previous finite vertex
+        xy, vidx = _rows(xy, finite), vidx[finite]
+    del finite
+    drop = np.zeros(len(xy), dtype=bool)
+    if len(xy) > 1:
+        drop[1:] = _repeats(xy, vidx)[0]
     if drop.any():
-        xy, vidx = xy[~drop], vidx[~drop]
+        keep_v = ~drop
+        xy, vidx = _rows(xy, keep_v), vidx[keep_v]
+    del drop
     xy, vidx = _remove_spikes(xy, vidx, np.radians(config.spike_angle_deg))
+    step = None  # |differences| between successive vertices, when still current
     if len(xy) > 1:  # a spike taken out may leave its two neighbours on one point
         again = np.zeros(len(xy), dtype=bool)
-        again[1:] = ((vidx[1:] == vidx[:-1]) & (np.abs(np.diff(xy[:, 0])) < 1e-6)
-                     & (np.abs(np.diff(xy[:, 1])) < 1e-6))
+        again[1:], step = _repeats(xy, vidx)
         if again.any():
-            xy, vidx = xy[~again], vidx[~again]
+            xy, vidx = _rows(xy, ~again), vidx[~again]
+            step = None
+        del again
     counts = np.bincount(vidx, minlength=len(part_row))
     same = vidx[1:] == vidx[:-1]
-    seg = np.hypot(np.diff(xy[:, 0]), np.diff(xy[:, 1]))
-    length = np.bincount(vidx[1:][same], seg[same], minlength=len(part_row))
+    seg = np.empty(len(xy))  # seg[i]: vertex i to i + 1 (the last one is never read)
+    if step is None:
+        np.hypot(np.diff(xy[:, 0]), np.diff(xy[:, 1]), out=seg[:-1])
+    else:  # hypot(x, y) = hypot(|x|, |y|) (C99 F.9.4.3): the same lengths
+        np.hypot(step[:, 0], step[:, 1], out=seg[:-1])
+    del step
+    seg[-1:] = 0.0
+    # a part's first vertex adds the 0 of the segment before it to the part's sum first
+    # (0 + 0): the same sums as over the segments within parts only
+    length = np.bincount(vidx[1:], np.where(same, seg[:-1], 0.0), minlength=len(part_row))
+    del same
     ok = (counts >= 2) & (length > MIN_PART_LENGTH_M)
     for i in np.flatnonzero(~ok):
         skipped.append({"src_fid": int(src_fid[part_row[i]]),
@@ -450,10 +482,22 @@ def _clean_parts(geoms: np.ndarray, frame: gpd.GeoDataFrame, config: Any,
                         "fewer than two distinct vertices (zero length)" if counts[i] < 2
                         else f"shorter than {MIN_PART_LENGTH_M * 1000:g} mm"})
     if ok.all():
-        return (xy, vidx), part_row, skipped
+        return ((xy, vidx), part_row, skipped) + (((seg, length),) if lengths else ())
     keep_v = ok[vidx]
     new_id = np.cumsum(ok) - 1
-    return (xy[keep_v], new_id[vidx[keep_v]]), part_row[ok], skipped
+    out = (_rows(xy, keep_v), new_id[vidx[keep_v]]), part_row[ok], skipped
+    return out + (((seg[keep_v], length[ok]),) if lengths else ())
+
+
+def _repeats(xy: np.ndarray, vidx: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Whether vertex ``i + 1`` repeats vertex ``i`` of the same part (both coordinates
+    within 1e-6), and the absolute differences ``|xy[i + 1] - xy[i]|`` (``(n - 1, 2)``)."""
+    step = np.diff(xy, axis=0)
+    np.abs(step, out=step)
+    near = step < 1e-6
+    both = near[:, 0] & near[:, 1]
+    both &= vidx[1:] == vidx[:-1]
+    return both, step
 
 
 def _single_parts(geoms: np.ndarray, gtype: np.ndarray,
@@ -518,7 +562,8 @@ def _remove_spikes(xy: np.ndarray, vidx: np.ndarray, limit_rad: float, passes: i
         spike[hit] = True
         # never remove two neighbours in one pass
         spike[1:] &= ~spike[:-1]
-        xy, vidx = xy[~spike], vidx[~spike]
+        keep = ~spike
+        xy, vidx = _rows(xy, keep), vidx[keep]
     return xy, vidx
 
 
@@ -543,28 +588,33 @@ def part_ends(parts: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.ndar
     return starts, ends, end_xy
 
 
-def part_shapes(parts: tuple[np.ndarray, np.ndarray], max_length: float = np.inf) -> np.ndarray:
+def part_shapes(parts: tuple[np.ndarray, np.ndarray], max_length: float = np.inf,
+                length: np.ndarray | None = None) -> np.ndarray:
     """Per cleaned part: length (m), shoelace sum and heading change within it, ``(n, 3)``.
 
     The shoelace sum ``sum(x_i y_(i+1) - x_(i+1) y_i)``, with coordinates taken about the
     part's first vertex, is twice the signed area the part sweeps about that vertex
     (:func:`ring_parts` moves it to a common point to add up a loop's area). The heading
     change (radians, left positive) is the turn between the part's successive segments.
-    Only parts no longer than ``max_length`` get the last two (the others 0).
+    Only parts no longer than ``max_length`` get the last two (the others 0). ``length``,
+    when given, is the parts' lengths computed already (by :func:`_clean_parts`).
     """
     xy, pid = parts
     n = int(pid[-1]) + 1 if len(pid) else 0
     out = np.zeros((n, 3))
     if n == 0:
         return out
-    same = pid[1:] == pid[:-1]
-    d = np.diff(xy, axis=0)
-    out[:, 0] = np.bincount(pid[1:][same], np.hypot(d[:, 0], d[:, 1])[same], minlength=n)
+    if length is not None:
+        out[:, 0] = length
+    else:
+        same = pid[1:] == pid[:-1]
+        d = np.diff(xy, axis=0)
+        out[:, 0] = np.bincount(pid[1:][same], np.hypot(d[:, 0], d[:, 1])[same], minlength=n)
     short = out[:, 0] <= max_length
     if not short.any():
         return out
     keep = short[pid]
-    xy, pid = xy[keep], pid[keep]
+    xy, pid = _rows(xy, keep), pid[keep]
     first = np.r_[0, np.flatnonzero(pid[1:] != pid[:-1]) + 1]
     xy = xy - np.repeat(xy[first], np.diff(np.r_[first, len(pid)]), axis=0)
     same = pid[1:] == pid[:-1]
@@ -759,11 +809,13 @@ class PartSummary:
 
     @classmethod
     def of(cls, parts: tuple[np.ndarray, np.ndarray], fid: np.ndarray,
-           config: Any) -> PartSummary:
-        """Summarise cleaned ``parts`` (``fid``: the src_fid of each part's row)."""
+           config: Any, length: np.ndarray | None = None) -> PartSummary:
+        """Summarise cleaned ``parts`` (``fid``: the src_fid of each part's row;
+        ``length``: their lengths when known, see :func:`part_shapes`)."""
         if not len(parts[1]):
             return cls.empty()
-        return cls(part_ends(parts)[2], part_shapes(parts, np.pi * config.ring_max_diameter_m),
+        return cls(part_ends(parts)[2],
+                   part_shapes(parts, np.pi * config.ring_max_diameter_m, length),
                    part_identity(parts) if config.drop_duplicates else None, fid)
 
     @classmethod
@@ -784,9 +836,11 @@ class Screened:
 
 
 def screen_parts(parts: tuple[np.ndarray, np.ndarray], fid: np.ndarray,
-                 group: np.ndarray | None, config: Any) -> Screened:
-    """Screen cleaned parts before joining (see :func:`screen_summaries`)."""
-    return screen_summaries(PartSummary.of(parts, fid, config), group, config)
+                 group: np.ndarray | None, config: Any,
+                 length: np.ndarray | None = None) -> Screened:
+    """Screen cleaned parts before joining (see :func:`screen_summaries`; ``length``: the
+    parts' lengths when known)."""
+    return screen_summaries(PartSummary.of(parts, fid, config, length), group, config)
 
 
 def screen_summaries(summary: PartSummary, group: np.ndarray | None,
@@ -827,11 +881,13 @@ def with_rings(group: np.ndarray | None, end_xy: np.ndarray, shapes: np.ndarray,
 
 
 def _join(parts: tuple[np.ndarray, np.ndarray], part_row: np.ndarray,
-          group: np.ndarray | None, tolerance: float, through_deg: float = 0.0) -> Chains:
+          group: np.ndarray | None, tolerance: float, through_deg: float = 0.0,
+          seg: np.ndarray | None = None) -> Chains:
     """Join parts that continue each other into chains (see :func:`chain_order`)."""
     starts, ends, end_xy = part_ends(parts)
     part, reverse, chain_of = chain_order(end_xy, group, tolerance, through_deg)
-    return assemble(parts[0], starts, ends, part_row, part, reverse, chain_of, tolerance)
+    return assemble(parts[0], starts, ends, part_row, part, reverse, chain_of, tolerance,
+                    seg=seg)
 
 
 def _same_group(group: np.ndarray | None, a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -967,10 +1023,14 @@ def _through_pairs(end_xy: np.ndarray, node: np.ndarray, degree: np.ndarray,
 
 def assemble(xy: np.ndarray, starts: np.ndarray, ends: np.ndarray, part_row: np.ndarray,
              part: np.ndarray, reverse: np.ndarray, chain_of: np.ndarray,
-             tolerance: float) -> Chains:
+             tolerance: float, seg: np.ndarray | None = None) -> Chains:
     """Build :class:`Chains` from cleaned parts and a chain order (see :func:`chain_order`).
 
-    ``chain_of`` must be sorted and number the chains ``0 .. k-1``.
+    ``chain_of`` must be sorted and number the chains ``0 .. k-1``. ``seg``, when given,
+    is the length of the segment from each vertex of ``xy`` to the next within its part
+    (from :func:`_clean_parts`): reused for the chains' measures (the same values, since
+    ``hypot`` ignores the signs a reversed part gives its differences) instead of
+    computed again; only segments across a joint between parts are computed.
     """
     # vertex index sequences: part p contributes take[p] vertices from base[p] onwards,
     # forwards or backwards (later parts of a chain drop their shared joint vertex)
@@ -980,19 +1040,27 @@ def assemble(xy: np.ndarray, starts: np.ndarray, ends: np.ndarray, part_row: np.
     take = ends[part] - starts[part] + 1 - later
     base = np.where(reverse, ends[part] - later, starts[part] + later)
     out_first = np.cumsum(take) - take
-    rep = np.repeat(np.arange(len(part)), take)
+    # output vertex k of part p is vertex base + (k - out_first) of xy, forwards, or
+    # base - (k - out_first) backwards: k plus or minus k, plus a per-part shift
+    backwards = np.repeat(reverse, take)
     vidx = np.arange(int(take.sum()), dtype=np.int64)
-    vidx -= out_first[rep]
-    backwards = reverse[rep]
     np.negative(vidx, out=vidx, where=backwards)
-    vidx += base[rep]
-    coords = xy[vidx]
-    del vidx
+    vidx += np.repeat(np.where(reverse, base + out_first, base - out_first), take)
+    coords = _rows(xy, vidx)
     n_chains = int(chain_of.max()) + 1
     offsets = np.zeros(n_chains + 1, dtype=np.int64)
     offsets[1:] = np.cumsum(np.bincount(chain_of, weights=take, minlength=n_chains)
                             ).astype(np.int64)
-    seg = np.hypot(np.diff(coords[:, 0]), np.diff(coords[:, 1]))
+    if seg is None:
+        del vidx
+        seg = np.hypot(np.diff(coords[:, 0]), np.diff(coords[:, 1]))
+    else:
+        # within a part, the segment between vertices v and v + 1 of xy (either way)
+        seg = seg[np.minimum(vidx[:-1], vidx[1:])]
+        del vidx
+        joint = out_first[1:] - 1  # from a part's last vertex to the next part's first
+        seg[joint] = np.hypot(coords[joint + 1, 0] - coords[joint, 0],
+                              coords[joint + 1, 1] - coords[joint, 1])
     seg[offsets[1:-1] - 1] = 0.0  # no length from one chain's last vertex to the next
     measure = np.empty(len(coords))
     measure[0] = 0.0
@@ -1003,7 +1071,7 @@ def assemble(xy: np.ndarray, starts: np.ndarray, ends: np.ndarray, part_row: np.
     firsts = coords[offsets[:-1]]
     lasts = coords[offsets[1:] - 1]
     closed = np.hypot(*(firsts - lasts).T) <= max(tolerance, 1e-9)
-    return Chains(coords=coords, offsets=offsets, vertex_row=part_row[part][rep],
+    return Chains(coords=coords, offsets=offsets, vertex_row=np.repeat(part_row[part], take),
                   measure=measure, crs=None, rows=rows, closed=closed,
                   vertex_reversed=backwards)
 

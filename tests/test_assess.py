@@ -272,3 +272,45 @@ def test_first_value_of_no_groups_is_empty():
     got = first_value(np.array([1, 0, 1]), np.array([2, 1, 0]),
                       np.array(["a", "b", "c"], dtype=object), 3)
     assert list(got) == ["b", "a", None]
+
+
+@pytest.mark.parametrize("shuffle", [False, True])
+def test_source_ids_and_first_values_sorted_or_not(shuffle):
+    """Pairs in (group, row) order skip the sort; shuffled pairs are sorted: both give the
+    texts and values a plain Python reading gives."""
+    from curvescan.attributes import first_value, src_fid_text
+
+    rng = np.random.default_rng(2)
+    groups = np.repeat(np.arange(50), rng.integers(1, 5, 50))
+    rows = rng.integers(0, 40, len(groups))
+    key = np.unique(groups * 100 + rows)
+    groups, rows = key // 100, key % 100
+    if shuffle:
+        p = rng.permutation(len(groups))
+        groups, rows = groups[p], rows[p]
+    src = rng.permutation(1000)[:40] + 1  # ids not in row order
+    names = np.array([f"road {r}" for r in range(40)], dtype=object)
+    text = src_fid_text(groups, rows, src, 52)
+    first = first_value(groups, rows, names, 52)
+    for g in range(52):
+        mine = rows[groups == g]
+        assert text[g] == ",".join(str(v) for v in sorted(src[mine]))
+        assert first[g] == (names[mine.min()] if len(mine) else None)
+    assert pd.Series(text).dtype == pd.Series(np.asarray(text, dtype=object)).dtype
+
+
+def test_directions_flip_alike_for_text_and_object_columns():
+    from curvescan.attributes import orient_to_features
+
+    words = ["left", "right", None, "digitised", "reverse", "left", "other"]
+    flip = np.array([True, True, True, True, False, False, True])
+    want = ["right", "left", None, "reverse", "reverse", "left", "other"]
+    text = pd.DataFrame({"direction": pd.Series(words, dtype="str"),
+                         "approach_direction": pd.Series(words, dtype=object),
+                         "grade_max_down_direction": pd.Series([None] * 7, dtype=object)})
+    out = orient_to_features(text, flip)
+    assert out["direction"].dtype == text["direction"].dtype
+    assert [None if pd.isna(v) else v for v in out["direction"]] == want
+    assert [None if pd.isna(v) else v for v in out["approach_direction"]] == want
+    assert out["grade_max_down_direction"].isna().all()
+    assert out["grade_max_down_direction"].dtype == object

@@ -288,3 +288,54 @@ def test_geographic_input_projected_as_coordinates_equals_projected_geometries()
     ref = prepare(load(again, make_config()), make_config(crs=chains.crs.to_wkt()))
     np.testing.assert_array_equal(chains.coords, ref.coords)
     np.testing.assert_array_equal(chains.measure, ref.measure)
+
+
+def test_reused_segment_lengths_give_the_measures_computed_afresh():
+    """prepare() reuses the segment and part lengths of the cleaning step for the chains'
+    measures and the part screening; computing them afresh must give the same bits."""
+    from curvescan import prepare as P
+
+    rng = np.random.default_rng(11)
+    lines = []
+    for k in range(60):  # wiggly roads split into parts, some digitised backwards
+        steps = rng.normal(size=(int(rng.integers(5, 40)), 2)) * [7.0, 3.0] + [10.0, 0.0]
+        xy = np.cumsum(steps, axis=0) + [0.0, 300.0 * k]
+        xy[3] = xy[2]  # a repeated vertex
+        cuts = np.sort(rng.choice(np.arange(2, len(xy) - 2), 2, replace=False))
+        for a, b in ((0, cuts[0] + 1), (cuts[0], cuts[1] + 1), (cuts[1], len(xy))):
+            piece = xy[a:b] + rng.normal(size=2) * 0.1 * (a > 0)  # ends meet within 0.5 m
+            lines.append(piece[::-1] if rng.random() < 0.4 else piece)
+    lines.append(lines[5].copy())  # a duplicate
+    lines.append(np.array([[0.0, -50.0], [0.0004, -50.0]]))  # shorter than a piece
+    frame = load(frame_from_lines(lines), make_config())
+    config = make_config()
+    chains = prepare(frame, config)
+
+    geoms = np.asarray(frame.geometry.values, dtype=object)
+    parts, part_row, _ = P._clean_parts(geoms, frame, config)
+    screened = P.screen_parts(parts, frame["src_fid"].to_numpy()[part_row],
+                              P.join_groups(frame, config, part_row), config)
+    assert screened.dropped.sum() == 1
+    parts, part_row = P.drop_parts(parts, part_row, screened.dropped)
+    fresh = P._join(parts, part_row, screened.group, config.join_tolerance_m,
+                    config.through_junction_deg)
+    assert chains.n_chains < len(lines) - 2  # parts were joined
+    assert chains.vertex_reversed.any()
+    for name in ("coords", "offsets", "measure", "vertex_row", "vertex_reversed", "closed"):
+        got, want = getattr(chains, name), getattr(fresh, name)
+        assert got.dtype == want.dtype and got.tobytes() == want.tobytes(), name
+
+
+def test_rows_moves_the_same_values_as_row_indexing():
+    from curvescan.prepare import _rows
+
+    rng = np.random.default_rng(5)
+    xy = rng.normal(size=(1000, 2))
+    xy[7] = [np.nan, -0.0]
+    mask = rng.random(1000) < 0.7
+    index = rng.integers(0, 1000, 3000)
+    for key in (mask, index, np.zeros(0, dtype=np.int64)):
+        assert _rows(xy, key).tobytes() == xy[key].tobytes()
+        assert _rows(xy, key).shape == xy[key].shape
+    strided = np.asfortranarray(xy)  # not C-contiguous: plain indexing
+    assert _rows(strided, index).tobytes() == np.ascontiguousarray(xy[index]).tobytes()
