@@ -22,6 +22,7 @@ import pandas as pd
 from .declare import Param
 from .errors import AssumptionWarning, CRSError, DataQualityWarning, InputError
 from .geometry.stations import Stations
+from .physics.limits import SUPERELEVATION_RANGE
 from .recording import warn_counted
 from .terrain_attr import (
     assume_superelevation,
@@ -57,7 +58,7 @@ PARAMETERS: tuple[Param, ...] = (
           stage=_T, choices=("crown", "design", "zero", "value")),
     Param("superelevation_assumed", "float", None,
           "Superelevation used with --superelevation-assumption value (fraction).",
-          unit="fraction", stage=_T, minimum=-0.2, maximum=0.2),
+          unit="fraction", stage=_T, minimum=-0.15, maximum=0.2),
     Param("crown_slope", "float", 0.02,
           "Normal crown cross-slope of a lane on tangents (fraction, positive).",
           unit="fraction", stage=_T, minimum=0.0, maximum=0.1, advanced=True),
@@ -391,7 +392,8 @@ def _measure(
     quality[~enough & (n_in == 0)] = "outside"
     usable = enough & ~coarse
     quality[usable & (resid > config.dem_max_residual_m)] = "noisy"
-    quality[usable & (np.abs(e_gov) > 0.2)] = "implausible"
+    lo_e, hi_e = SUPERELEVATION_RANGE  # what the physics stage accepts
+    quality[usable & ~((e_gov >= lo_e) & (e_gov <= hi_e))] = "implausible"
     quality[enough & coarse] = "coarse"
 
     # grade along the centreline: robust fit over curve + approaches, and windowed grades
@@ -442,7 +444,7 @@ def _measure(
                      stacklevel=3)
     if bad_counts["noisy"] or bad_counts["implausible"]:
         warn_counted("DEM cross-sections too rough (residual > {residual} m) for {noisy} "
-                     "curve(s) and implausible (|e| > 0.2) for {implausible}; superelevation "
+                     "curve(s) and implausible (e outside [-0.15, 0.20]) for {implausible}; superelevation "
                      "assumed there", DataQualityWarning,
                      {k: bad_counts[k] for k in ("noisy", "implausible")},
                      {"residual": config.dem_max_residual_m}, stacklevel=3)

@@ -11,6 +11,7 @@ from typing import Any
 import numpy as np
 
 from .errors import AssumptionWarning, DataQualityWarning
+from .physics.limits import SUPERELEVATION_RANGE
 from .recording import warn_counted
 
 __all__ = [
@@ -119,8 +120,9 @@ def parse_superelevation(values: Any, unit: str = "auto",
     ``values`` alone. An :class:`AssumptionWarning` is raised when ``auto`` reads the field
     as percent but ``values`` also hold bare non-zero values below 1 (which would mean
     less than 1 %, and look like fractions mixed in); its count adds up over partitions.
-    Values whose magnitude exceeds 0.20 after conversion, and unreadable text, become NaN
-    with a counted :class:`DataQualityWarning`.
+    Values outside [-0.15, 0.20] after conversion (what the physics stage accepts,
+    :data:`curvescan.physics.limits.SUPERELEVATION_RANGE`), and unreadable text, become
+    NaN with a counted :class:`DataQualityWarning`.
 
     Parameters
     ----------
@@ -159,13 +161,15 @@ def parse_superelevation(values: Any, unit: str = "auto",
                 stacklevel=3,
             )
     e = np.where(percent | (bare & bare_pct), number / 100.0, number)
-    implausible = np.isfinite(e) & (np.abs(e) > MAX_PLAUSIBLE_SUPERELEVATION)
+    # what the physics stage accepts: steeper adverse slopes are not roads
+    lo_e, hi_e = SUPERELEVATION_RANGE
+    implausible = np.isfinite(e) & ~((e >= lo_e) & (e <= hi_e))
     if implausible.any() or bad.any():
         warn_counted(
-            "superelevation field: {bad} unreadable value(s) and {implausible} value(s) beyond "
-            "±{limit} were ignored (terrain or the assumption used there instead)",
+            "superelevation field: {bad} unreadable value(s) and {implausible} value(s) outside "
+            "[{lo}, {hi}] were ignored (terrain or the assumption used there instead)",
             DataQualityWarning, {"bad": int(bad.sum()), "implausible": int(implausible.sum())},
-            {"limit": f"{MAX_PLAUSIBLE_SUPERELEVATION:.2f}"}, stacklevel=3,
+            {"lo": f"{lo_e:.2f}", "hi": f"{hi_e:.2f}"}, stacklevel=3,
         )
     return np.where(implausible, np.nan, e)
 

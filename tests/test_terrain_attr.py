@@ -121,3 +121,12 @@ def test_assumption_modes():
     assert (inner == 0).all() and (outer == 0).all() and applied[0] == "zero"
     inner, outer, _ = assume_superelevation("value", r, v, crown=0.02, e_max=0.08, value=0.05)
     assert (inner == 0.05).all() and (outer == 0.05).all()
+
+
+def test_adverse_values_steeper_than_the_physics_accepts_are_ignored():
+    # the physics stage takes superelevation in [-0.15, 0.20] (limits.SUPERELEVATION_RANGE);
+    # a steeper adverse value from the field would give null limit speeds, not the fallback
+    with pytest.warns(DataQualityWarning, match=r"1 value\(s\) outside \[-0.15, 0.20\]"):
+        got = parse_superelevation(["-0.17", "-0.15", "0.2"], "fraction")
+    assert np.isnan(got[0])
+    np.testing.assert_allclose(got[1:], [-0.15, 0.2])
