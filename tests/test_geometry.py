@@ -435,6 +435,30 @@ def test_a_sharp_arc_between_two_flat_ones_is_not_lost_in_the_peel_gaps():
     assert hit["deflection_deg"].iloc[0] == pytest.approx(arc["circ_deflection_deg"], rel=0.2)
 
 
+def test_a_short_sharp_curve_past_a_flat_arc_is_not_swallowed_by_its_transition():
+    """Road 63 of the noisy accuracy scenario (seed 1): an arc of 1500 m radius (106
+    degrees), 136 m of tangent, then a curve of 42 m radius turning 63 degrees (a 26 m arc
+    between 20 m spirals) on four vertices. Read at the flat arc's coarse scale, the seed of
+    the piece left beside the flat arc straddled the sharp curve and the tangent; its
+    circle was rejected and the sharp curve ended up inside a 489 m transition of the flat
+    one. Truth: the generator's own alignment."""
+    al, xy = _noisy_benchmark_road(63)
+    truth = al.truth()
+    sharp = truth[(truth["radius_m"] - 41.7).abs() < 0.1].iloc[0]  # the case of this test
+    c = _curves([xy + [497_000.0, 5_054_000.0]]).curves
+    mid = 0.5 * (sharp["circ_start_m"] + sharp["circ_end_m"])
+    hit = c[(c["circ_start_m"] <= mid + 10.0) & (c["circ_end_m"] >= mid - 10.0)]
+    assert len(hit) == 1
+    assert hit["radius_m"].iloc[0] == pytest.approx(41.7, rel=0.25)
+    assert hit["deflection_deg"].iloc[0] == pytest.approx(sharp["deflection_deg"], rel=0.25)
+    # and the flat arc keeps its own curve, without the sharp one's turn
+    flat = truth[(truth["radius_m"] - 1500.0).abs() < 0.1].iloc[0]
+    fmid = 0.5 * (flat["circ_start_m"] + flat["circ_end_m"])
+    on_flat = c[(c["circ_start_m"] <= fmid) & (c["circ_end_m"] >= fmid)]
+    assert len(on_flat) == 1
+    assert on_flat["deflection_deg"].iloc[0] < flat["deflection_deg"] + 15.0
+
+
 @pytest.mark.parametrize("radius,deflection,spiral", [(120.0, 50.0, 60.0), (80.0, 60.0, 40.0)])
 def test_sparse_vertices_on_a_spiralled_curve_radius_within_se(radius, deflection, spiral):
     """Vertices 25-45 m apart leave a short arc two or three vertices: the radius may be

@@ -431,6 +431,20 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
                     lo, hi = prof.gm[i0], prof.gm[np.maximum(i1 - 1, i0)]
                     scale[r_ok] = prof.choose_scale(1.0 / fit.radius[r_ok], chain[r_ok])
                     accept[r_ok] = np.isfinite(fit.radius[r_ok])
+            # a wide seed read at a flat piece's coarse scale can straddle a short sharp
+            # arc and the tangent beside it: try the sharpest point read finely instead
+            retry = np.flatnonzero(~accept & (side != 0)) if PEAK_RETRY else retry[:0]
+            if len(retry):
+                p_ok, p0, p1, p_scale = _peak_arc(prof, retry, pf, pl, vlo, vhi, tol, sign,
+                                                  scale, least, fields)
+                if len(p_ok):
+                    i0[p_ok], i1[p_ok] = p0, p1
+                    again = _fit(prof, p0, p1)
+                    for name in fields:
+                        getattr(fit, name)[p_ok] = getattr(again, name)
+                    lo, hi = prof.gm[i0], prof.gm[np.maximum(i1 - 1, i0)]
+                    scale[p_ok] = p_scale
+                    accept[p_ok] = np.isfinite(fit.radius[p_ok])
         out.append({"piece": origin[accept], "chain": chain[accept], "scale": scale[accept],
                     "sign": sign[accept],
                     "lo": lo[accept], "hi": hi[accept], "i0": i0[accept], "i1": i1[accept],
@@ -638,6 +652,56 @@ def _near_arc(prof: Profile, which: np.ndarray, side: np.ndarray, near: np.ndarr
         found[todo[ok]] = True
         out0[todo[ok]], out1[todo[ok]] = i0[ok], i1[ok]
     return which[found], out0[found], out1[found]
+
+
+#: Retry a rejected later-round piece from its sharpest point (:func:`_peak_arc`).
+PEAK_RETRY = True
+#: Times the peak's scale is refined: the peak read finely is sharper, which allows a
+#: finer scale again.
+PEAK_REFINE = 3
+
+
+def _peak_arc(prof: Profile, which: np.ndarray, pf: np.ndarray, pl: np.ndarray,
+              vlo: np.ndarray, vhi: np.ndarray, tol: np.ndarray, sign: np.ndarray,
+              scale: np.ndarray, least: np.ndarray, fields: tuple):
+    """A circular part grown from the sharpest point of each piece ``which``, read at the
+    finest scale the peak's own curvature allows, that passes the plateau and cover tests.
+
+    Returns the pieces that found one, their vertex ranges [i0, i1) and scales.
+    """
+    a, b, sg = pf[which], pl[which], sign[which]
+    chain = prof.chain[a]
+    sc = scale[which].copy()
+    idx, grp = expand(a, b - a + 1)
+    peak = a.copy()
+    for _ in range(PEAK_REFINE):
+        k = prof.k(sc[grp], idx) * sg[grp]
+        peak = idx[group_argmax(k, grp, len(which))]
+        level = prof.k(sc, peak) * sg
+        finer = prof.choose_scale(np.maximum(level, 1e-9), chain)
+        if not (finer < sc).any():
+            break
+        sc = np.minimum(sc, finer)
+    level = np.maximum(prof.k(sc, peak) * sg, 1e-9)
+    span_lo, span_hi = half_level_span(prof, a, b, prof.gs[peak], 1.0 / level, sg, sc)
+    # an arc stands on its own: the curvature falls to half its peak on both sides inside
+    # the piece (a transition's rises to the piece's end, where the arc it leads to was)
+    alone = (span_lo > prof.gs[a]) & (span_hi < prof.gs[b])
+    i0, i1 = _vertex_range(prof, span_lo, span_hi, vlo[which], vhi[which], minimum=3)
+    centre = np.clip(_nearest_vertex(prof, prof.gs[peak]), i0, np.maximum(i1 - 1, i0))
+    i0, i1, fit = _settle(prof, i0, i1, centre, vlo[which], vhi[which], tol[which],
+                          np.minimum(least[which], 3), fields)
+    i0, i1 = _middle_three(fit, tol[which], centre, i0, i1, vlo[which], vhi[which])
+    fit = _fit(prof, i0, i1)
+    lo, hi = prof.gm[i0], prof.gm[np.maximum(i1 - 1, i0)]
+    radius = np.where(np.isfinite(fit.radius) & (fit.radius > 0), fit.radius, np.inf)
+    ok = alone & np.isfinite(radius) & (i1 - i0 >= 3)
+    r = np.where(ok, radius, 1.0)
+    sc = np.where(ok, prof.choose_scale(1.0 / r, chain), sc)
+    s_lo, s_hi = half_level_span(prof, a, b, 0.5 * (lo + hi), r, sg, sc)
+    ok &= (hi - lo) >= PIECE_COVER * (s_hi - s_lo)
+    ok &= _is_plateau(prof, lo, hi, sg, sc, r)
+    return which[ok], i0[ok], i1[ok], sc[ok]
 
 
 def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
