@@ -423,28 +423,15 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
                 near = np.where(side > 0, reach_lo, reach_hi)
                 r_ok, r0, r1 = _near_arc(prof, np.flatnonzero(retry), side, near, vlo, vhi,
                                          tol, sign, pf, pl, min_length_m, min_deflection_rad)
-                if len(r_ok):
-                    i0[r_ok], i1[r_ok] = r0, r1
-                    again = _fit(prof, r0, r1)
-                    for name in fields:
-                        getattr(fit, name)[r_ok] = getattr(again, name)
-                    lo, hi = prof.gm[i0], prof.gm[np.maximum(i1 - 1, i0)]
-                    scale[r_ok] = prof.choose_scale(1.0 / fit.radius[r_ok], chain[r_ok])
-                    accept[r_ok] = np.isfinite(fit.radius[r_ok])
+                _adopt(prof, fit, i0, i1, scale, accept, chain, r_ok, r0, r1, None, fields)
             # a wide seed read at a flat piece's coarse scale can straddle a short sharp
             # arc and the tangent beside it: try the sharpest point read finely instead
             retry = np.flatnonzero(~accept & (side != 0)) if PEAK_RETRY else retry[:0]
             if len(retry):
                 p_ok, p0, p1, p_scale = _peak_arc(prof, retry, pf, pl, vlo, vhi, tol, sign,
                                                   scale, least, fields)
-                if len(p_ok):
-                    i0[p_ok], i1[p_ok] = p0, p1
-                    again = _fit(prof, p0, p1)
-                    for name in fields:
-                        getattr(fit, name)[p_ok] = getattr(again, name)
-                    lo, hi = prof.gm[i0], prof.gm[np.maximum(i1 - 1, i0)]
-                    scale[p_ok] = p_scale
-                    accept[p_ok] = np.isfinite(fit.radius[p_ok])
+                _adopt(prof, fit, i0, i1, scale, accept, chain, p_ok, p0, p1, p_scale, fields)
+            lo, hi = prof.gm[i0], prof.gm[np.maximum(i1 - 1, i0)]
         out.append({"piece": origin[accept], "chain": chain[accept], "scale": scale[accept],
                     "sign": sign[accept],
                     "lo": lo[accept], "hi": hi[accept], "i0": i0[accept], "i1": i1[accept],
@@ -652,6 +639,24 @@ def _near_arc(prof: Profile, which: np.ndarray, side: np.ndarray, near: np.ndarr
         found[todo[ok]] = True
         out0[todo[ok]], out1[todo[ok]] = i0[ok], i1[ok]
     return which[found], out0[found], out1[found]
+
+
+def _adopt(prof: Profile, fit: CircleFit, i0: np.ndarray, i1: np.ndarray,
+           scale: np.ndarray, accept: np.ndarray, chain: np.ndarray, which: np.ndarray,
+           r0: np.ndarray, r1: np.ndarray, new_scale: np.ndarray | None,
+           fields: tuple) -> None:
+    """Put a retry's vertex ranges ``[r0, r1)`` in place for the pieces ``which`` (in
+    place): refit, rescale (at the part's own radius unless ``new_scale`` is given) and
+    accept where the fit holds."""
+    if not len(which):
+        return
+    i0[which], i1[which] = r0, r1
+    again = _fit(prof, r0, r1)
+    for name in fields:
+        getattr(fit, name)[which] = getattr(again, name)
+    scale[which] = (prof.choose_scale(1.0 / fit.radius[which], chain[which])
+                    if new_scale is None else new_scale)
+    accept[which] = np.isfinite(fit.radius[which])
 
 
 #: Retry a rejected later-round piece from its sharpest point (:func:`_peak_arc`).
