@@ -459,6 +459,33 @@ def test_a_short_sharp_curve_past_a_flat_arc_is_not_swallowed_by_its_transition(
     assert on_flat["deflection_deg"].iloc[0] < flat["deflection_deg"] + 15.0
 
 
+def test_a_tangent_between_two_curves_of_one_run_is_kept():
+    """The same road 63: the flat arc and the sharp curve lie in one curvature run (the
+    detection window joins them across the 136 m tangent). They met halfway, so the
+    tangent became two transitions, and the sharp curve's circular part, squeezed by the
+    rule that an arc turns no more than the curve, came out 11 m long against the true
+    26 m. Read at the sharp curve's finer scale the two ramps do not meet: a tangent lies
+    between them, and the circular part keeps its length. Truth: the generator's own
+    alignment."""
+    al, xy = _noisy_benchmark_road(63)
+    truth = al.truth()
+    sharp = truth[(truth["radius_m"] - 41.7).abs() < 0.1].iloc[0]
+    flat = truth[(truth["radius_m"] - 1500.0).abs() < 0.1].iloc[0]
+    res = _curves([xy + [497_000.0, 5_054_000.0]])
+    c, seg = res.curves, res.segments
+    near = c[(c["circ_end_m"] > sharp["circ_start_m"]) & (c["circ_start_m"] < sharp["circ_end_m"])]
+    assert len(near) == 1
+    hit = near.iloc[0]
+    true_arc = sharp["circ_end_m"] - sharp["circ_start_m"]
+    overlap = (min(hit["circ_end_m"], sharp["circ_end_m"])
+               - max(hit["circ_start_m"], sharp["circ_start_m"]))
+    assert overlap >= 0.5 * true_arc
+    assert overlap >= 0.5 * hit["circular_length_m"]
+    between = seg[(seg["s_start_m"] >= flat["circ_end_m"] - 50.0)
+                  & (seg["s_end_m"] <= sharp["s_start_m"] + 30.0)]
+    assert (between["kind"] == "tangent").any()
+
+
 @pytest.mark.parametrize("radius,deflection,spiral", [(120.0, 50.0, 60.0), (80.0, 60.0, 40.0)])
 def test_sparse_vertices_on_a_spiralled_curve_radius_within_se(radius, deflection, spiral):
     """Vertices 25-45 m apart leave a short arc two or three vertices: the radius may be

@@ -490,6 +490,10 @@ def _ramp_end(prof: Profile, a: np.ndarray, b: np.ndarray, level: np.ndarray, si
     return s25 - 0.5 * (s75 - s25)
 
 
+#: Circular parts of one run meet halfway only where their ramps reach each other.
+MEET_ONLY_WHERE_RAMPS_DO = True
+
+
 def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.DataFrame:
     """One curve per circular part: extents, transitions, deflection, fit quality."""
     se = np.hypot(_radius_se(parts, prof.sigma, config.circle_tolerance_m),
@@ -569,9 +573,25 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     straight_out = _on_end_tangent(prof, p, end + gbase, i1 - 1, i1, tol, first_v, last_v)
     start = np.where(straight_in, circ_start, start)
     end = np.where(straight_out, circ_end, end)
+    # neighbours of one run meet halfway where their own ramps reach each other (a
+    # compound curve); where they do not, a tangent lies between them (a run is read at a
+    # window wide enough to join two curves across a short tangent)
     mid_next = 0.5 * (circ_end[:-1] + circ_start[1:])
-    end[:-1] = np.where(same_next[:-1], mid_next, end[:-1])
-    start[1:] = np.where(same_prev[1:], mid_next, start[1:])
+    meet = same_next[:-1].copy()
+    if MEET_ONLY_WHERE_RAMPS_DO and meet.any():
+        # read at the finer of the two parts' scales: a flat arc's coarse window reaches
+        # over a short tangent into its sharp neighbour and never sees the tangent
+        k = np.flatnonzero(meet)
+        fine_scale = np.minimum(scale[k], scale[k + 1])
+        out_end = _ramp_end(prof, a2[k], np.maximum(b2[k], a2[k]), level[k], sign[k],
+                            fine_scale, +1)
+        in_start = _ramp_end(prof, a[k + 1], np.maximum(b[k + 1], a[k + 1]), level[k + 1],
+                             sign[k + 1], fine_scale, -1)
+        meet[k] = out_end >= in_start
+    end[:-1] = np.where(meet, mid_next, np.where(same_next[:-1],
+                                                 np.minimum(end[:-1], mid_next), end[:-1]))
+    start[1:] = np.where(meet, mid_next, np.where(same_prev[1:],
+                                                  np.maximum(start[1:], mid_next), start[1:]))
     start = np.clip(np.maximum(start, look_lo), 0.0, lengths)
     end = np.clip(np.minimum(end, look_hi), 0.0, lengths)
     # neighbouring circular parts never overlap (they meet in the middle of the overlap),
