@@ -486,6 +486,22 @@ def test_a_tangent_between_two_curves_of_one_run_is_kept():
     assert (between["kind"] == "tangent").any()
 
 
+def test_an_arc_end_broken_off_by_noise_is_merged_back():
+    """Road 159 of the noisy accuracy scenario (seed 1): an arc of 367 m radius and 261 m.
+    Noise broke its last 100 m off as a second part of 526 m radius on eight vertices,
+    reported as a compound curve. The two curvatures differ by less than three standard
+    errors and one circle fits both within three noise sd: one arc. Truth: the generator's
+    own alignment."""
+    al, xy = _noisy_benchmark_road(159)
+    truth = al.truth()
+    arc = truth[(truth["radius_m"] - 367.0).abs() < 1.0].iloc[0]  # the case of this test
+    c = _curves([xy + [497_000.0, 5_054_000.0]]).curves
+    on_arc = c[(c["circ_end_m"] > arc["circ_start_m"] + 20.0)
+               & (c["circ_start_m"] < arc["circ_end_m"] - 20.0)]
+    assert len(on_arc) == 1
+    assert on_arc["radius_m"].iloc[0] == pytest.approx(367.0, rel=0.1)
+
+
 @pytest.mark.parametrize("radius,deflection,spiral", [(120.0, 50.0, 60.0), (80.0, 60.0, 40.0)])
 def test_sparse_vertices_on_a_spiralled_curve_radius_within_se(radius, deflection, spiral):
     """Vertices 25-45 m apart leave a short arc two or three vertices: the radius may be

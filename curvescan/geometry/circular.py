@@ -64,6 +64,11 @@ SEED_VERTICES = 5
 #: The consensus never shrinks a circular part below this many vertices (three always
 #: lie on a circle).
 CONSENSUS_MIN_VERTICES = 5
+#: Neighbouring parts of one run whose radii differ by less than FRAGMENT_SIGMAS standard
+#: errors merge where their joint circle misses the vertices by at most MERGE_RMSE_SHARE
+#: times the noise (or the parts' own RMSE, if larger).
+FRAGMENT_SIGMAS = 3.0
+MERGE_RMSE_SHARE = 3.0
 #: Neighbouring parts of nearly equal radius merge only where their joint circle misses
 #: the vertices by at most this many times the noise (a wandering arc, not two arcs).
 ALIKE_RMSE_SHARE = 4.0
@@ -744,7 +749,16 @@ def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
         alike = ((np.maximum(ra, rb) < MIN_RADIUS_RATIO * np.minimum(ra, rb))
                  & (joint.radius < MIN_RADIUS_RATIO * np.maximum(ra, rb))
                  & (joint.rmse <= ALIKE_RMSE_SHARE * base))
-        merge = np.isfinite(joint.radius) & ((joint.rmse <= 1.3 * base) | alike)
+        # ... and so are two parts whose radii the data cannot tell apart, where one circle
+        # still fits them within a few noise sd: noise and a transition's first vertices
+        # break an arc's end off as a short sharper or flatter fragment
+        # (compared in curvature, whose fit error is about symmetric, unlike the radius's)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            indistinct = (np.abs(1.0 / ra - 1.0 / rb) < FRAGMENT_SIGMAS * np.hypot(
+                parts["radius_se"][a] / ra ** 2, parts["radius_se"][b] / rb ** 2))
+        merge = np.isfinite(joint.radius) & (
+            (joint.rmse <= 1.3 * base) | alike
+            | (indistinct & (joint.rmse <= MERGE_RMSE_SHARE * base)))
         # never merge overlapping pairs in one pass: take every other candidate in a run
         take = merge.copy()
         take[1:] &= ~(merge[:-1] & (b[:-1] == a[1:]))
