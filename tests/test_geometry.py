@@ -502,6 +502,23 @@ def test_an_arc_end_broken_off_by_noise_is_merged_back():
     assert on_arc["radius_m"].iloc[0] == pytest.approx(367.0, rel=0.1)
 
 
+def test_a_fragment_between_two_arcs_joins_the_one_it_fits():
+    """Road 85 of the noisy accuracy scenario (seed 1): a compound curve of 97 m radius
+    then 202 m (377 m long). Three vertices 84-108 m into the flatter arc came out as a
+    fragment between the sharper arc's part and the flatter arc's. Both neighbours could
+    take it; the first one did, and the sharper curve's part ran 108 m into the flatter
+    arc with a radius of 159 m. The fragment now joins the neighbour whose circle fits it
+    better. Truth: the generator's own alignment."""
+    al, xy = _noisy_benchmark_road(85)
+    truth = al.truth()
+    flat = truth[(truth["radius_m"] - 202.0).abs() < 1.0].iloc[0]  # the case of this test
+    c = _curves([xy + [497_000.0, 5_054_000.0]]).curves
+    at = flat["circ_start_m"] + 100.0
+    hit = c[(c["circ_start_m"] <= at) & (c["circ_end_m"] >= at)]
+    assert len(hit) == 1
+    assert hit["radius_m"].iloc[0] == pytest.approx(202.0, rel=0.1)
+
+
 @pytest.mark.parametrize("radius,deflection,spiral", [(120.0, 50.0, 60.0), (80.0, 60.0, 40.0)])
 def test_sparse_vertices_on_a_spiralled_curve_radius_within_se(radius, deflection, spiral):
     """Vertices 25-45 m apart leave a short arc two or three vertices: the radius may be

@@ -69,6 +69,8 @@ CONSENSUS_MIN_VERTICES = 5
 #: times the noise (or the parts' own RMSE, if larger).
 FRAGMENT_SIGMAS = 3.0
 MERGE_RMSE_SHARE = 3.0
+#: Of two merges that share a part, the one with the better joint fit is made first.
+BEST_FIT_MERGE = True
 #: Neighbouring parts of nearly equal radius merge only where their joint circle misses
 #: the vertices by at most this many times the noise (a wandering arc, not two arcs).
 ALIKE_RMSE_SHARE = 4.0
@@ -759,9 +761,17 @@ def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
         merge = np.isfinite(joint.radius) & (
             (joint.rmse <= 1.3 * base) | alike
             | (indistinct & (joint.rmse <= MERGE_RMSE_SHARE * base)))
-        # never merge overlapping pairs in one pass: take every other candidate in a run
+        # never merge overlapping pairs in one pass: of two candidates sharing a part, take
+        # the one whose joint circle fits better (a fragment between two arcs joins the one
+        # it belongs to)
         take = merge.copy()
-        take[1:] &= ~(merge[:-1] & (b[:-1] == a[1:]))
+        score = np.where(merge, joint.rmse / base, np.inf)
+        shared = merge[:-1] & merge[1:] & (b[:-1] == a[1:])
+        if BEST_FIT_MERGE:
+            take[1:] &= ~(shared & (score[:-1] <= score[1:]))
+            take[:-1] &= ~(shared & (score[1:] < score[:-1]))
+        else:
+            take[1:] &= ~(merge[:-1] & (b[:-1] == a[1:]))
         if not take.any():
             return parts
         a, b, i0, i1 = a[take], b[take], i0[take], i1[take]
