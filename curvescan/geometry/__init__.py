@@ -490,6 +490,36 @@ def _ramp_end(prof: Profile, a: np.ndarray, b: np.ndarray, level: np.ndarray, si
     return s25 - 0.5 * (s75 - s25)
 
 
+#: A later-round part on three vertices next to a sharper part of its run is folded into
+#: that curve's transition (:func:`_flat_fragments`).
+DROP_FLAT_END_FRAGMENTS = True
+
+
+def _flat_fragments(parts: dict, keep: np.ndarray) -> np.ndarray:
+    """Parts found after the first round on only three vertices (a circle through three
+    points, no redundancy) whose kept neighbour in the same run is sharper.
+
+    On sparse vertices the last vertex of an arc and the first two of its transition make
+    such a part: a flatter "second arc" beside the first. The data cannot tell it from a
+    compound curve's flatter arc, but either way the sharper neighbour governs the curve,
+    and the stretch stays in that curve as transition.
+    """
+    n = len(parts["radius"])
+    out = np.zeros(n, dtype=bool)
+    if n < 2:
+        return out
+    order = np.lexsort((parts["lo"], parts["piece"]))
+    piece = parts["piece"][order]
+    radius = np.where(keep[order], parts["radius"][order], np.inf)
+    cand = (parts["n"][order] <= 3) & (parts["round"][order] > 0) & keep[order]
+    same_prev = np.r_[False, piece[1:] == piece[:-1]]
+    same_next = np.r_[piece[1:] == piece[:-1], False]
+    sharper_prev = same_prev & (np.r_[np.inf, radius[:-1]] < radius)
+    sharper_next = same_next & (np.r_[radius[1:], np.inf] < radius)
+    out[order] = cand & (sharper_prev | sharper_next)
+    return out
+
+
 #: Circular parts of one run meet halfway only where their ramps reach each other.
 MEET_ONLY_WHERE_RAMPS_DO = True
 
@@ -507,6 +537,8 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     significant |= _turn_significant(prof, parts, significant, base, chains.lengths, config)
     keep = np.isfinite(radius) & (radius > 0) & (radius <= config.max_radius_m)
     keep &= significant | ~np.isfinite(se)
+    if DROP_FLAT_END_FRAGMENTS:
+        keep &= ~_flat_fragments(parts, keep)
     p = {k: v[keep] for k, v in parts.items()}
     se = se[keep]
     order = np.lexsort((p["lo"], p["piece"]))
