@@ -22,7 +22,8 @@ import pandas as pd
 from .declare import Param
 from .errors import AssumptionWarning, CRSError, DataQualityWarning, InputError
 from .geometry.stations import Stations
-from .physics.limits import SUPERELEVATION_RANGE
+from .physics.limits import (SUPERELEVATION_RANGE, SUPERELEVATION_RANGE_TEXT,
+                             superelevation_accepted)
 from .recording import warn_counted
 from .terrain_attr import (
     assume_superelevation,
@@ -58,7 +59,8 @@ PARAMETERS: tuple[Param, ...] = (
           stage=_T, choices=("crown", "design", "zero", "value")),
     Param("superelevation_assumed", "float", None,
           "Superelevation used with --superelevation-assumption value (fraction).",
-          unit="fraction", stage=_T, minimum=-0.15, maximum=0.2),
+          unit="fraction", stage=_T, minimum=SUPERELEVATION_RANGE[0],
+          maximum=SUPERELEVATION_RANGE[1]),
     Param("crown_slope", "float", 0.02,
           "Normal crown cross-slope of a lane on tangents (fraction, positive).",
           unit="fraction", stage=_T, minimum=0.0, maximum=0.1, advanced=True),
@@ -392,8 +394,7 @@ def _measure(
     quality[~enough & (n_in == 0)] = "outside"
     usable = enough & ~coarse
     quality[usable & (resid > config.dem_max_residual_m)] = "noisy"
-    lo_e, hi_e = SUPERELEVATION_RANGE  # what the physics stage accepts
-    quality[usable & ~((e_gov >= lo_e) & (e_gov <= hi_e))] = "implausible"
+    quality[usable & ~superelevation_accepted(e_gov)] = "implausible"  # as physics takes
     quality[enough & coarse] = "coarse"
 
     # grade along the centreline: robust fit over curve + approaches, and windowed grades
@@ -444,10 +445,11 @@ def _measure(
                      stacklevel=3)
     if bad_counts["noisy"] or bad_counts["implausible"]:
         warn_counted("DEM cross-sections too rough (residual > {residual} m) for {noisy} "
-                     "curve(s) and implausible (e outside [-0.15, 0.20]) for {implausible}; superelevation "
-                     "assumed there", DataQualityWarning,
+                     "curve(s) and implausible (e outside {accepted}) for {implausible}; "
+                     "superelevation assumed there", DataQualityWarning,
                      {k: bad_counts[k] for k in ("noisy", "implausible")},
-                     {"residual": config.dem_max_residual_m}, stacklevel=3)
+                     {"residual": config.dem_max_residual_m,
+                      "accepted": SUPERELEVATION_RANGE_TEXT}, stacklevel=3)
     return {
         "quality": quality, "e_gov": e_gov, "e_gov_se": e_gov_se, "e_inner": e_inner,
         "e_outer": e_outer, "grade": grade, "grade_se": grade_se,

@@ -11,7 +11,7 @@ from typing import Any
 import numpy as np
 
 from .errors import AssumptionWarning, DataQualityWarning
-from .physics.limits import SUPERELEVATION_RANGE
+from .physics.limits import SUPERELEVATION_RANGE_TEXT, superelevation_accepted
 from .recording import warn_counted
 
 __all__ = [
@@ -162,14 +162,13 @@ def parse_superelevation(values: Any, unit: str = "auto",
             )
     e = np.where(percent | (bare & bare_pct), number / 100.0, number)
     # what the physics stage accepts: steeper adverse slopes are not roads
-    lo_e, hi_e = SUPERELEVATION_RANGE
-    implausible = np.isfinite(e) & ~((e >= lo_e) & (e <= hi_e))
+    implausible = np.isfinite(e) & ~superelevation_accepted(e)
     if implausible.any() or bad.any():
         warn_counted(
             "superelevation field: {bad} unreadable value(s) and {implausible} value(s) outside "
-            "[{lo}, {hi}] were ignored (terrain or the assumption used there instead)",
+            "{accepted} were ignored (terrain or the assumption used there instead)",
             DataQualityWarning, {"bad": int(bad.sum()), "implausible": int(implausible.sum())},
-            {"lo": f"{lo_e:.2f}", "hi": f"{hi_e:.2f}"}, stacklevel=3,
+            {"accepted": SUPERELEVATION_RANGE_TEXT}, stacklevel=3,
         )
     return np.where(implausible, np.nan, e)
 

@@ -435,9 +435,10 @@ def circular_parts(prof: Profile, pf: np.ndarray, pl: np.ndarray, level: np.ndar
             # arc and the tangent beside it: try the sharpest point read finely instead
             retry = np.flatnonzero(~accept & (side != 0)) if PEAK_RETRY else retry[:0]
             if len(retry):
-                p_ok, p0, p1, p_scale = _peak_arc(prof, retry, pf, pl, vlo, vhi, tol, sign,
-                                                  scale, least, fields)
-                _adopt(prof, fit, i0, i1, scale, accept, chain, p_ok, p0, p1, p_scale, fields)
+                p_ok, p0, p1, p_scale, p_fit = _peak_arc(prof, retry, pf, pl, vlo, vhi, tol,
+                                                         sign, scale, least, fields)
+                _adopt(prof, fit, i0, i1, scale, accept, chain, p_ok, p0, p1, p_scale, fields,
+                       p_fit)
             lo, hi = prof.gm[i0], prof.gm[np.maximum(i1 - 1, i0)]
         out.append({"piece": origin[accept], "chain": chain[accept], "scale": scale[accept],
                     "sign": sign[accept],
@@ -593,6 +594,11 @@ def _tangent_end_gain(coords: np.ndarray, end: np.ndarray, step: int, k: np.ndar
 NEAR_ARC_VERTICES = 8
 
 
+def _take_fit(fit: CircleFit, rows: np.ndarray) -> CircleFit:
+    """The fits ``rows`` (indices or a mask) of ``fit``."""
+    return CircleFit(**{f: getattr(fit, f)[rows] for f in CircleFit.__dataclass_fields__})
+
+
 def _near_arc(prof: Profile, which: np.ndarray, side: np.ndarray, near: np.ndarray,
               vlo: np.ndarray, vhi: np.ndarray, tol: np.ndarray, sign: np.ndarray,
               pf: np.ndarray, pl: np.ndarray, min_length_m: float, min_deflection_rad: float):
@@ -630,7 +636,7 @@ def _near_arc(prof: Profile, which: np.ndarray, side: np.ndarray, near: np.ndarr
         if k == 4:  # already fitted above
             rows = np.searchsorted(first, todo)
             i0, i1, ok = four[0][rows], four[1][rows], four[3][rows]
-            fit = CircleFit(**{f: getattr(four[2], f)[rows] for f in CircleFit.__dataclass_fields__})
+            fit = _take_fit(four[2], rows)
         else:
             i0, i1, fit, ok = on_circle(todo, k)
         lo, hi = prof.gm[i0], prof.gm[i1 - 1]
@@ -651,14 +657,15 @@ def _near_arc(prof: Profile, which: np.ndarray, side: np.ndarray, near: np.ndarr
 def _adopt(prof: Profile, fit: CircleFit, i0: np.ndarray, i1: np.ndarray,
            scale: np.ndarray, accept: np.ndarray, chain: np.ndarray, which: np.ndarray,
            r0: np.ndarray, r1: np.ndarray, new_scale: np.ndarray | None,
-           fields: tuple) -> None:
+           fields: tuple, again: CircleFit | None = None) -> None:
     """Put a retry's vertex ranges ``[r0, r1)`` in place for the pieces ``which`` (in
-    place): refit, rescale (at the part's own radius unless ``new_scale`` is given) and
-    accept where the fit holds."""
+    place): their fit (``again``, or fitted here), scale (the part's own radius's unless
+    ``new_scale`` is given) and acceptance where the fit holds."""
     if not len(which):
         return
     i0[which], i1[which] = r0, r1
-    again = _fit(prof, r0, r1)
+    if again is None:
+        again = _fit(prof, r0, r1)
     for name in fields:
         getattr(fit, name)[which] = getattr(again, name)
     scale[which] = (prof.choose_scale(1.0 / fit.radius[which], chain[which])
@@ -679,7 +686,7 @@ def _peak_arc(prof: Profile, which: np.ndarray, pf: np.ndarray, pl: np.ndarray,
     """A circular part grown from the sharpest point of each piece ``which``, read at the
     finest scale the peak's own curvature allows, that passes the plateau and cover tests.
 
-    Returns the pieces that found one, their vertex ranges [i0, i1) and scales.
+    Returns the pieces that found one, their vertex ranges [i0, i1), scales and fits.
     """
     a, b, sg = pf[which], pl[which], sign[which]
     chain = prof.chain[a]
@@ -713,7 +720,7 @@ def _peak_arc(prof: Profile, which: np.ndarray, pf: np.ndarray, pl: np.ndarray,
     s_lo, s_hi = half_level_span(prof, a, b, 0.5 * (lo + hi), r, sg, sc)
     ok &= (hi - lo) >= PIECE_COVER * (s_hi - s_lo)
     ok &= _is_plateau(prof, lo, hi, sg, sc, r)
-    return which[ok], i0[ok], i1[ok], sc[ok]
+    return which[ok], i0[ok], i1[ok], sc[ok], _take_fit(fit, ok)
 
 
 def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
@@ -764,14 +771,13 @@ def merge_fragments(prof: Profile, parts: dict[str, np.ndarray],
         # never merge overlapping pairs in one pass: of two candidates sharing a part, take
         # the one whose joint circle fits better (a fragment between two arcs joins the one
         # it belongs to)
+        # (without BEST_FIT_MERGE, equal scores: the earlier candidate)
         take = merge.copy()
-        score = np.where(merge, joint.rmse / base, np.inf)
+        score = (np.where(merge, joint.rmse / base, np.inf) if BEST_FIT_MERGE
+                 else np.zeros(len(merge)))
         shared = merge[:-1] & merge[1:] & (b[:-1] == a[1:])
-        if BEST_FIT_MERGE:
-            take[1:] &= ~(shared & (score[:-1] <= score[1:]))
-            take[:-1] &= ~(shared & (score[1:] < score[:-1]))
-        else:
-            take[1:] &= ~(merge[:-1] & (b[:-1] == a[1:]))
+        take[1:] &= ~(shared & (score[:-1] <= score[1:]))
+        take[:-1] &= ~(shared & (score[1:] < score[:-1]))
         if not take.any():
             return parts
         a, b, i0, i1 = a[take], b[take], i0[take], i1[take]

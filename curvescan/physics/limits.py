@@ -36,6 +36,8 @@ __all__ = [
     "STANDARD_GRAVITY_M_S2",
     "KMH_PER_MS",
     "SUPERELEVATION_RANGE",
+    "SUPERELEVATION_RANGE_TEXT",
+    "superelevation_accepted",
     "FRICTION_RANGE",
     "DESIGN_SIDE_FRICTION_KMH",
     "DESIGN_SIDE_FRICTION",
@@ -58,6 +60,8 @@ STANDARD_GRAVITY_M_S2 = 9.80665
 KMH_PER_MS = 3.6
 #: Accepted superelevation (fraction), inclusive.
 SUPERELEVATION_RANGE = (-0.15, 0.20)
+#: The same range as text, for messages.
+SUPERELEVATION_RANGE_TEXT = f"[{SUPERELEVATION_RANGE[0]:.2f}, {SUPERELEVATION_RANGE[1]:.2f}]"
 #: Accepted friction (fraction): lower bound exclusive, upper inclusive.
 FRICTION_RANGE = (0.0, 1.5)
 
@@ -80,6 +84,13 @@ _HYDROPLANING_MPH_PER_SQRT_PSI = 10.35
 
 _BISECTION_STEPS = 44
 _SPEED_CAP_MS = 1000.0  # 3600 km/h: above it a limit is reported as inf
+
+
+def superelevation_accepted(e: ArrayLike) -> NDArray[np.bool_]:
+    """Whether each superelevation (fraction) lies in :data:`SUPERELEVATION_RANGE`
+    (False for NaN)."""
+    e = np.asarray(e, dtype=float)
+    return (e >= SUPERELEVATION_RANGE[0]) & (e <= SUPERELEVATION_RANGE[1])
 
 
 def _as_float(x: ArrayLike) -> NDArray[np.float64]:
@@ -110,8 +121,8 @@ def check_curve_inputs(
         (
             "superelevation",
             _as_float(superelevation),
-            lambda e: (e >= SUPERELEVATION_RANGE[0]) & (e <= SUPERELEVATION_RANGE[1]),
-            "in [-0.15, 0.20]",
+            superelevation_accepted,
+            f"in {SUPERELEVATION_RANGE_TEXT}",
         ),
     ]
     if friction is not None:

@@ -102,10 +102,10 @@ def _curve_arrays(curves: pd.DataFrame, config: Any) -> dict[str, NDArray[np.flo
         for c in _REQUIRED + _OPTIONAL
     }
     r, e = data["radius_m"], data["superelevation"]
-    lo_e, hi_e = limits.SUPERELEVATION_RANGE
     problems = {
         "radius (NaN or <= 0)": ~(np.isfinite(r) & (r > 0)),
-        "superelevation (NaN or outside [-0.15, 0.20])": ~((e >= lo_e) & (e <= hi_e)),
+        f"superelevation (NaN or outside {limits.SUPERELEVATION_RANGE_TEXT})":
+            ~limits.superelevation_accepted(e),
     }
     bad = np.zeros(n, dtype=bool)
     for what, mask in problems.items():
