@@ -389,7 +389,8 @@ def _plans(surveys: list[_Survey], config: Any):
 def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None,
                    sink: Callable[[int, dict], None], arrow: bool = False,
                    out_dir: str | None = None,
-                   reword: Callable[[list], list] | None = None) -> dict:
+                   reword: Callable[[list], list] | None = None,
+                   tail: Callable[[Any, bool], None] | None = None) -> dict:
     """Run the four passes; hand the partitions' results to ``sink`` in partition order.
 
     The partitions' warnings are merged (:func:`~curvescan.recording.merge`), then passed
@@ -398,6 +399,10 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
     With ``arrow`` and ``out_dir``, worker processes of a local cluster (made here) hand
     their results over as Arrow IPC files in ``out_dir`` (:func:`scan_task`); in-process
     and remote workers send them in the result as before.
+
+    ``tail(client, shared)``, if given, runs once every partition is handed on, while the
+    cluster is still up (``shared``: its workers are processes of this machine that see
+    ``out_dir``); its time is not part of ``timings["total"]``.
 
     Returns the parts of the run record that are known once all partitions are done.
     """
@@ -507,11 +512,13 @@ def run_partitions(source: Any, config: Any, dem: Any, progress: Progress | None
             scan_messages = reword(scan_messages)
         warn_again(scan_messages, stacklevel=3)
         recorded += scan_messages
+        timings["total"] = round(time.perf_counter() - t0, 4)
+        if tail is not None:
+            tail(client, files is not None)
     finally:
         client.close()
         if cluster is not None:
             cluster.close()
-    timings["total"] = round(time.perf_counter() - t0, 4)
     return {"crs": crs, "note": note, "input_crs": src.crs, "n_rows": n_rows,
             "chains": n_chains, "ring_rows": n_ring_rows, "skipped": skipped,
             "partitions": src.n,
@@ -668,9 +675,12 @@ class _Streamer(_Merger):
             out[name] = frame
         return out
 
-    def write_ranked(self, curve_columns: list[str], config: Any,
-                     report: Progress) -> None:
-        """Rank the spilled layers over all partitions; write them in rank order."""
+    def write_ranked(self, curve_columns: list[str], config: Any, report: Progress,
+                     written: Callable[[str], None] | None = None) -> None:
+        """Rank the spilled layers over all partitions; write them in rank order.
+
+        ``written(name)``, if given, is called once layer ``name`` is complete and another
+        layer is still to be written (not after the last)."""
         import pandas as pd
 
         from . import assess
@@ -684,7 +694,10 @@ class _Streamer(_Merger):
             keys["hazards"], keys["winter"] = assess.rerank(hz, winter, names)
         total = max(1, sum(len(k) for k in keys.values()))
         done = 0
-        for name, order in keys.items():
+        names = list(keys)
+        for k, (name, order) in enumerate(keys.items()):
+            if k and written is not None:
+                written(names[k - 1])
             rank_col = RANKED[name][0]
             rows = order["_row"].to_numpy()
             ranks = order[rank_col].to_numpy() if rank_col in order else None
@@ -700,6 +713,63 @@ class _Streamer(_Merger):
                 done += min(RANK_CHUNK, len(rows) - a)
                 report(f"writing {name}", done / total)
             self.top.setdefault(name, self.empty[name].to_frame())
+
+
+def _build_trees(jobs: list[tuple[str, tuple]]) -> list[tuple[str, Any]]:
+    """Build the trees of ``jobs`` (``(layer, args of build_tree_file)``) one after the
+    other, in one task: ``(layer, result)`` pairs, ``result`` the exception of a failed
+    build. One task at a time keeps one core for the client, which writes meanwhile."""
+    from .io.rtree import build_tree_file
+
+    out = []
+    for layer, args in jobs:
+        try:
+            out.append((layer, build_tree_file(*args)))
+        except Exception as exc:  # e.g. a full disk: that index is built at close
+            out.append((layer, exc))
+    return out
+
+
+def _prebuild_indexes(sink: Any, client: Any, layers: list[str] | None = None) -> Any:
+    """Submit the spatial index builds of ``layers`` (default: all ``sink`` has written so
+    far), whose rows are all written (:func:`curvescan.io.rtree.build_tree_file`), as
+    one task; its future, or None."""
+    index = sink.index
+    if index is None:
+        return None
+    jobs = [(layer, args) for layer in (list(index.rows) if layers is None else layers)
+            if (args := index.prebuild_args(layer)) is not None]
+    return client.submit(_build_trees, jobs, pure=False) if jobs else None
+
+
+def _adopt_indexes(sink: Any, builds: list) -> None:
+    """Hand the trees of :func:`_prebuild_indexes` (its futures; None for none) to
+    ``sink``'s index; a build that failed is left to the GeoPackage's close, which builds
+    that index itself."""
+    import logging
+    import warnings
+
+    from .errors import DataQualityWarning
+    from .io.rtree import _REBUILT
+
+    log = logging.getLogger("curvescan")
+    results = []
+    for future in builds:
+        if future is None:
+            continue
+        try:
+            results += future.result()
+        except Exception as exc:  # e.g. a worker lost: the close builds those indexes
+            log.debug("spatial indexes built at close: %s", exc)
+    for layer, result in results:
+        if isinstance(result, Exception):
+            log.debug("index of %s built at close: %s", layer, result)
+            continue
+        tree_file, rows, bulk = result
+        if not bulk:
+            warnings.warn(_REBUILT.format(rtree=f"of {layer}"),
+                          DataQualityWarning, stacklevel=3)
+        sink.index.adopt(layer, tree_file, rows)
 
 
 def _merge_report(total: dict, part: dict) -> None:
@@ -838,15 +908,28 @@ def scan_to_gpkg(source: Any, output: Any, *, dem: Any = None, overwrite: bool =
     sink = GpkgAppender(output, overwrite=overwrite, descriptions=probe.layer_descriptions())
     merger = _Streamer(sink)
     report = progress or (lambda stage, frac: None)
-    try:
-        info = run_partitions(source, config, dem, lambda s, f: report(s, 0.9 * f), merger,
-                              arrow=True, out_dir=sink.folder(),
-                              reword=merger.layer_warnings)
+    tail_timings: dict[str, float] = {}
+
+    def tail(client: Any, shared: bool) -> None:
+        # the layers written so far are complete: where worker processes see the spill
+        # folder, they build those layers' spatial indexes while the client writes the
+        # ranked layers (GDAL holds the GIL while it writes: a thread would wait), and
+        # each ranked layer's index while the client writes the next
+        builds = [_prebuild_indexes(sink, client)] if shared else []
         t = time.perf_counter()
         curve_columns = merger.empty.get("hazards", merger.empty.get("curves"))
         merger.write_ranked(list(curve_columns.columns) if curve_columns is not None else [],
-                            config, lambda s, f: report(s, 0.9 + 0.1 * f))
-        info["timings"]["write_ranked"] = round(time.perf_counter() - t, 4)
+                            config, lambda s, f: report(s, 0.9 + 0.1 * f),
+                            written=(lambda name: builds.append(
+                                _prebuild_indexes(sink, client, [name]))) if shared else None)
+        tail_timings["write_ranked"] = round(time.perf_counter() - t, 4)
+        _adopt_indexes(sink, builds)
+
+    try:
+        info = run_partitions(source, config, dem, lambda s, f: report(s, 0.9 * f), merger,
+                              arrow=True, out_dir=sink.folder(),
+                              reword=merger.layer_warnings, tail=tail)
+        info["timings"].update(tail_timings)
         layers = {"curves": (pd.concat(merger.summary, ignore_index=True) if merger.summary
                              else pd.DataFrame({"curve_id": [], "posted_kmh": []})),
                   "segments": pd.DataFrame(), **merger.top}

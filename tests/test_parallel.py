@@ -362,6 +362,9 @@ def test_results_handed_over_as_files_give_the_same_geopackage(tmp_path, network
                         lambda self: opened.append(self.path) or real_open(self))
     monkeypatch.setattr(rtree.IndexBuilder, "add", lambda self, layer, wkb, boxes=None: (
         given.append((layer, boxes is not None)), real_add(self, layer, wkb, boxes))[1])
+    copied, real_copy = [], rtree._copy_tree
+    monkeypatch.setattr(rtree, "_copy_tree", lambda con, table, schema: (
+        copied.append(table), real_copy(con, table, schema))[1])
     kw = dict(speed_field="maxspeed", partition_features=15)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -374,6 +377,13 @@ def test_results_handed_over_as_files_give_the_same_geopackage(tmp_path, network
     # envelopes for the spatial index came from the workers, ranked layers' via the spill
     assert {layer for layer, _ in given} == {"curves", "segments", "hazards", "winter"}
     assert all(known for _, known in given)
+    # the workers built the indexes of the layers complete before the ranked write, and
+    # of each ranked layer but the last while the client wrote the next
+    assert sorted(copied) == ["rtree_curves_geom", "rtree_hazards_geom",
+                              "rtree_segments_geom"]
+    from .test_spatial_index import check_spatial_indexes
+
+    check_spatial_indexes(tmp_path / "files.gpkg")
     got, want = _gpkg_layers(tmp_path / "files.gpkg"), _gpkg_layers(tmp_path / "memory.gpkg")
     assert list(got) == list(want)
     for name in ("curves", "hazards"):  # the index finds every row by its own envelope
@@ -387,6 +397,38 @@ def test_results_handed_over_as_files_give_the_same_geopackage(tmp_path, network
         a, b = (x[name].drop(columns=["update_time"], errors="ignore") for x in (got, want))
         pd.testing.assert_frame_equal(a, b, check_exact=True, obj=name)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["files.gpkg", "memory.gpkg"]
+
+
+@pytest.mark.parametrize("where", ["each build", "the whole task"])
+def test_an_index_build_that_fails_on_a_worker_is_made_at_close(tmp_path, network,
+                                                                 monkeypatch, where):
+    # a worker's index build is an aid, not a step the file depends on: when it fails
+    # (every layer's build raises, or the task as a whole), the close builds the indexes
+    import curvescan.parallel as parallel
+    from curvescan.algorithms import run_scan
+    from curvescan.io import partitions, rtree
+
+    monkeypatch.setattr(partitions, "_in_process", lambda client: False)
+
+    def fails(*args):
+        raise OSError("worker lost")
+
+    if where == "each build":
+        monkeypatch.setattr(rtree, "build_tree_file", fails)
+    else:
+        monkeypatch.setattr(parallel, "_build_trees", fails)
+    copied, real_copy = [], rtree._copy_tree
+    monkeypatch.setattr(rtree, "_copy_tree", lambda con, table, schema: (
+        copied.append(table), real_copy(con, table, schema))[1])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        run_scan(network, tmp_path / "out.gpkg", speed_field="maxspeed",
+                 partition_features=15)
+    from .test_spatial_index import check_spatial_indexes
+
+    check_spatial_indexes(tmp_path / "out.gpkg")
+    assert copied == []  # no tree came from a worker: all were built at close
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out.gpkg"]
 
 
 def test_spill_adopts_files_and_shifts_their_ids(tmp_path):

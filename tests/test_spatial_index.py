@@ -268,3 +268,88 @@ def test_a_tree_that_fails_sqlites_check_is_rebuilt_row_by_row(monkeypatch):
     want = sorted((np.flatnonzero((boxes[:, 1] >= 100) & (boxes[:, 0] <= 300)
                                   & (boxes[:, 3] >= 100) & (boxes[:, 2] <= 300)) + 1).tolist())
     assert got == want
+
+
+def _recorded_layer(tmp_path, n=3000, seed=6):
+    """A GeoPackage layer ``lines`` written without an index, with its envelopes recorded
+    by an :class:`~curvescan.io.rtree.IndexBuilder` keeping them in a folder."""
+    import geopandas as gpd
+
+    rng = np.random.default_rng(seed)
+    start = rng.uniform(0, 5e4, (n, 2))
+    lines = [shapely.LineString(p + np.cumsum(rng.normal(0, 30, (4, 2)), axis=0))
+             for p in start]
+    lines[7] = shapely.LineString()  # an empty geometry: no entry in the index
+    frame = gpd.GeoDataFrame({"v": np.arange(float(n))}, geometry=lines, crs="EPSG:3857")
+    out = tmp_path / "p.gpkg"
+    folder = tmp_path / "spill"
+    folder.mkdir()
+    index = rtree.IndexBuilder(str(folder))
+    table = pa.table({"v": frame["v"].to_numpy(), "geometry": shapely.to_wkb(lines)})
+    for a in range(0, n, 1000):  # appended in parts, as partitions come in
+        part = table.slice(a, 1000)
+        pyogrio.write_arrow(part, out, layer="lines", driver="GPKG", geometry_name="geometry",
+                            geometry_type="LineString", crs="EPSG:3857",
+                            append=out.exists(), layer_options={"SPATIAL_INDEX": "NO"})
+        index.add("lines", part.column("geometry"))
+    return out, index, frame
+
+
+def _tree_tables(path, rtree_table):
+    con = sqlite3.connect(str(path))
+    try:
+        return {part: con.execute(f'SELECT * FROM "{rtree_table}{part}" ORDER BY 1').fetchall()
+                for part in ("_node", "_rowid", "_parent")}
+    finally:
+        con.close()
+
+
+def test_a_tree_built_in_another_file_is_copied_into_the_geopackage(tmp_path):
+    # the tree a worker process builds from the envelope file (while the client writes
+    # other layers) is the tree the close would have built in place, table for table;
+    # SQLite's check and GDAL's spatial filter accept it
+    out, index, frame = _recorded_layer(tmp_path)
+    args = index.prebuild_args("lines")
+    assert args is not None and args[2] == len(frame)
+    tree_file, rows, bulk = rtree.build_tree_file(*args)
+    assert bulk and rows == len(frame)
+    index.adopt("lines", tree_file, rows)
+    copied = []
+    real = rtree._copy_tree
+    rtree._copy_tree = lambda *a: (copied.append(a[1]), real(*a))[1]
+    try:
+        assert index.build(str(out)) == ["lines"]
+    finally:
+        rtree._copy_tree = real
+    assert copied == ["rtree_lines_geom"]
+    check_spatial_indexes(out, layers=["lines"])
+    # the same layer indexed in place gives the same tables
+    in_place = tmp_path / "in_place.gpkg"
+    in_place.write_bytes(out.read_bytes())
+    con = sqlite3.connect(str(in_place))
+    with con:
+        con.execute("DROP TABLE rtree_lines_geom")
+        con.execute("DELETE FROM gpkg_extensions WHERE table_name = 'lines'")
+        for (name,) in con.execute("SELECT name FROM sqlite_master WHERE type = 'trigger' "
+                                   "AND name LIKE 'rtree_lines_geom_%'").fetchall():
+            con.execute(f'DROP TRIGGER "{name}"')
+    con.close()
+    assert rtree.add_spatial_indexes(str(in_place), known=rtree.IndexBuilder()) == ["lines"]
+    assert _tree_tables(out, "rtree_lines_geom") == _tree_tables(in_place, "rtree_lines_geom")
+
+
+def test_a_tree_of_other_rows_is_not_adopted(tmp_path):
+    # a tree whose row count is not the layer's is ignored (the close builds the index
+    # itself), and an envelope file of another length is a clear error
+    out, index, frame = _recorded_layer(tmp_path, n=600)
+    envelope_file, tree_file, rows = index.prebuild_args("lines")
+    with pytest.raises(ValueError, match="600 envelopes, expected 601"):
+        rtree.build_tree_file(envelope_file, tree_file, rows + 1)
+    rtree.build_tree_file(envelope_file, tree_file, rows)
+    index.adopt("lines", tree_file, rows - 1)
+    assert index.prebuilt == {}
+    assert index.build(str(out)) == ["lines"]
+    check_spatial_indexes(out, layers=["lines"])
+    # no folder, no rows: nothing to build elsewhere
+    assert rtree.IndexBuilder().prebuild_args("lines") is None
+    assert index.prebuild_args("other") is None

@@ -162,6 +162,7 @@ class IndexBuilder:
         self.folder = folder
         self.parts: dict[str, list] = {}
         self.rows: dict[str, int] = {}
+        self.prebuilt: dict[str, tuple[str, int]] = {}  # layer: (tree file, rows)
 
     def add(self, layer: str, wkb: Any, boxes: np.ndarray | None = None) -> None:
         """Record the envelopes of ``wkb`` (Arrow binary), the next rows of ``layer``
@@ -188,6 +189,64 @@ class IndexBuilder:
         """Add the RTree index of every geometry table of ``path`` (see
         :func:`add_spatial_indexes`), from the recorded envelopes where they apply."""
         return add_spatial_indexes(path, known=self)
+
+    def prebuild_args(self, layer: str) -> tuple[str, str, int] | None:
+        """Arguments of :func:`build_tree_file` for ``layer``, whose rows are all written:
+        its envelope file, a tree file next to it and the row count (None without a
+        folder or rows). The tree can then be built by another process while the writer
+        goes on with other layers; :meth:`adopt` takes it back."""
+        if self.folder is None or not self.rows.get(layer):
+            return None
+        envelope_file = self.parts[layer][0]
+        return envelope_file, envelope_file[:-len(".f32")] + ".rtree.sqlite", self.rows[layer]
+
+    def adopt(self, layer: str, tree_file: str, rows: int) -> None:
+        """Use the tree in ``tree_file`` (:func:`build_tree_file`) for ``layer`` if it holds
+        ``rows`` rows, as many as were recorded; :meth:`build` copies it in."""
+        if rows == self.rows.get(layer):
+            self.prebuilt[layer] = (tree_file, rows)
+
+
+#: Name of the R*Tree table in a file of :func:`build_tree_file`.
+TREE_TABLE = "tree"
+
+
+def build_tree_file(envelope_file: str, tree_file: str, rows: int) -> tuple[str, int, bool]:
+    """Build the packed R*Tree of the envelopes in ``envelope_file`` (float32 rows, as
+    :class:`IndexBuilder` writes them; ids 1 to ``rows``) in a new SQLite file.
+
+    Runs anywhere that sees both files, e.g. a worker process of a local cluster while
+    the client writes other layers. Returns ``(tree_file, rows, bulk)``: ``bulk`` is False
+    where SQLite's check rejected the packed tree and it was built row by row.
+    """
+    import os
+
+    boxes = np.fromfile(envelope_file, np.float32).reshape(-1, 4)
+    if len(boxes) != rows:
+        raise ValueError(f"{envelope_file}: {len(boxes)} envelopes, expected {rows}")
+    if os.path.exists(tree_file):
+        os.unlink(tree_file)
+    keep = np.flatnonzero(np.isfinite(boxes).all(axis=1))
+    con = sqlite3.connect(tree_file)
+    try:
+        with con:
+            con.execute("PRAGMA journal_mode = OFF")
+            con.execute(f"CREATE VIRTUAL TABLE {TREE_TABLE} USING "
+                        "rtree(id, minx, maxx, miny, maxy)")
+            bulk = _fill(con, TREE_TABLE, keep.astype(np.int64) + 1, boxes[keep])
+    finally:
+        con.close()
+    return tree_file, rows, bulk
+
+
+def _copy_tree(con: sqlite3.Connection, rtree: str, schema: str) -> None:
+    """Fill the (new, empty) R*Tree ``rtree`` with the tables of the tree in the attached
+    database ``schema`` (:func:`build_tree_file`): its node, rowid and parent tables are
+    copied as they are."""
+    for part in ("_node", "_rowid", "_parent"):
+        con.execute(f"DELETE FROM {_quote(rtree + part)}")
+        con.execute(f"INSERT INTO {_quote(rtree + part)} SELECT * FROM "
+                    f"{_quote(schema)}.{_quote(TREE_TABLE + part)}")
 
 
 def index_boxes(wkb: Any) -> np.ndarray:
@@ -248,8 +307,23 @@ def _pack(ids: np.ndarray, boxes: np.ndarray):
 def build_rtree(con: sqlite3.Connection, rtree: str, ids: np.ndarray,
                 boxes: np.ndarray) -> None:
     """Fill the (new, empty) R*Tree virtual table ``rtree`` with ``ids`` and ``boxes``."""
+    if not _fill(con, rtree, ids, boxes):
+        import warnings
+
+        from ..errors import DataQualityWarning
+
+        warnings.warn(_REBUILT.format(rtree=rtree), DataQualityWarning, stacklevel=2)
+
+
+_REBUILT = ("spatial index {rtree}: the bulk-built tree failed SQLite's check; "
+            "rebuilt row by row")
+
+
+def _fill(con: sqlite3.Connection, rtree: str, ids: np.ndarray, boxes: np.ndarray) -> bool:
+    """:func:`build_rtree` without the warning: False where the packed tree failed
+    SQLite's check and ``rtree`` was filled row by row instead."""
     if not len(ids):
-        return
+        return True
     node_size = 4 + MAX_CELLS * _CELL.itemsize
     page = con.execute("PRAGMA page_size").fetchone()[0]
     node_size = min(node_size, page - 64)
@@ -307,16 +381,12 @@ def build_rtree(con: sqlite3.Connection, rtree: str, ids: np.ndarray,
     if parent_rows:
         con.executemany(f"INSERT INTO {_quote(rtree + '_parent')} VALUES (?, ?)",
                         np.concatenate(parent_rows).tolist())
-    if not _tree_ok(con, rtree):
-        # never leave a file whose index SQLite does not accept: rebuild it through
-        # SQLite's own inserts (slower, always valid) and say so
-        import warnings
-
-        from ..errors import DataQualityWarning
-
-        warnings.warn(f"spatial index {rtree}: the bulk-built tree failed SQLite's check; "
-                      "rebuilt row by row", DataQualityWarning, stacklevel=2)
-        _insert_rows(con, rtree, ids, boxes)
+    if _tree_ok(con, rtree):
+        return True
+    # never leave a file whose index SQLite does not accept: rebuild it through SQLite's
+    # own inserts (slower, always valid); the caller says so
+    _insert_rows(con, rtree, ids, boxes)
+    return False
 
 
 def _tree_ok(con: sqlite3.Connection, rtree: str) -> bool:
@@ -349,6 +419,10 @@ def add_spatial_indexes(path: str, tables: Iterable[str] | None = None,
     """
     done = []
     con = sqlite3.connect(str(path))
+    attached = {}  # layer: schema of its prebuilt tree (attached before any transaction)
+    for k, (layer, (tree_file, _)) in enumerate((known.prebuilt if known else {}).items()):
+        con.execute("ATTACH DATABASE ? AS " + _quote(f"prebuilt{k}"), (tree_file,))
+        attached[layer] = f"prebuilt{k}"
     try:
         with con:
             con.execute("CREATE TABLE IF NOT EXISTS gpkg_extensions (table_name TEXT, "
@@ -368,11 +442,17 @@ def add_spatial_indexes(path: str, tables: Iterable[str] | None = None,
                 fid = _fid_column(con, table)
                 rtree = f"rtree_{table}_{column}"
                 ids, boxes = _known(con, table, fid, known)
-                if ids is None:
+                recorded = ids is not None
+                if not recorded:
                     ids, boxes = envelopes(con, table, column, fid)
                 con.execute(f"CREATE VIRTUAL TABLE {_quote(rtree)} USING "
                             "rtree(id, minx, maxx, miny, maxy)")
-                build_rtree(con, rtree, ids, boxes)
+                if recorded and table in attached:
+                    # the recorded rows are the table's rows (checked by _known), so the
+                    # tree built from their envelopes in another process is this index
+                    _copy_tree(con, rtree, attached[table])
+                else:
+                    build_rtree(con, rtree, ids, boxes)
                 for name, body in _TRIGGERS.items():
                     con.execute(f"CREATE TRIGGER {_quote(rtree + '_' + name)} " + body.format(
                         t=table.replace('"', '""'), c=column.replace('"', '""'),
