@@ -162,7 +162,7 @@ class IndexBuilder:
         self.folder = folder
         self.parts: dict[str, list] = {}
         self.rows: dict[str, int] = {}
-        self.prebuilt: dict[str, tuple[str, int]] = {}  # layer: (tree file, rows)
+        self.prebuilt: dict[str, str] = {}  # layer: file of its tree (build_tree_file)
 
     def add(self, layer: str, wkb: Any, boxes: np.ndarray | None = None) -> None:
         """Record the envelopes of ``wkb`` (Arrow binary), the next rows of ``layer``
@@ -204,7 +204,7 @@ class IndexBuilder:
         """Use the tree in ``tree_file`` (:func:`build_tree_file`) for ``layer`` if it holds
         ``rows`` rows, as many as were recorded; :meth:`build` copies it in."""
         if rows == self.rows.get(layer):
-            self.prebuilt[layer] = (tree_file, rows)
+            self.prebuilt[layer] = tree_file
 
 
 #: Name of the R*Tree table in a file of :func:`build_tree_file`.
@@ -226,14 +226,13 @@ def build_tree_file(envelope_file: str, tree_file: str, rows: int) -> tuple[str,
         raise ValueError(f"{envelope_file}: {len(boxes)} envelopes, expected {rows}")
     if os.path.exists(tree_file):
         os.unlink(tree_file)
-    keep = np.flatnonzero(np.isfinite(boxes).all(axis=1))
     con = sqlite3.connect(tree_file)
     try:
         with con:
             con.execute("PRAGMA journal_mode = OFF")
             con.execute(f"CREATE VIRTUAL TABLE {TREE_TABLE} USING "
                         "rtree(id, minx, maxx, miny, maxy)")
-            bulk = _fill(con, TREE_TABLE, keep.astype(np.int64) + 1, boxes[keep])
+            bulk = _fill(con, TREE_TABLE, *_finite_rows(boxes))
     finally:
         con.close()
     return tree_file, rows, bulk
@@ -420,7 +419,7 @@ def add_spatial_indexes(path: str, tables: Iterable[str] | None = None,
     done = []
     con = sqlite3.connect(str(path))
     attached = {}  # layer: schema of its prebuilt tree (attached before any transaction)
-    for k, (layer, (tree_file, _)) in enumerate((known.prebuilt if known else {}).items()):
+    for k, (layer, tree_file) in enumerate((known.prebuilt if known else {}).items()):
         con.execute("ATTACH DATABASE ? AS " + _quote(f"prebuilt{k}"), (tree_file,))
         attached[layer] = f"prebuilt{k}"
     try:
@@ -441,17 +440,19 @@ def add_spatial_indexes(path: str, tables: Iterable[str] | None = None,
                     continue
                 fid = _fid_column(con, table)
                 rtree = f"rtree_{table}_{column}"
-                ids, boxes = _known(con, table, fid, known)
-                recorded = ids is not None
-                if not recorded:
-                    ids, boxes = envelopes(con, table, column, fid)
+                recorded = _recorded_rows(con, table, fid, known)
                 con.execute(f"CREATE VIRTUAL TABLE {_quote(rtree)} USING "
                             "rtree(id, minx, maxx, miny, maxy)")
                 if recorded and table in attached:
-                    # the recorded rows are the table's rows (checked by _known), so the
-                    # tree built from their envelopes in another process is this index
+                    # the recorded rows are the table's rows, so the tree built from
+                    # their envelopes in another process is this index
                     _copy_tree(con, rtree, attached[table])
                 else:
+                    boxes = known.boxes(table) if recorded else None
+                    if boxes is not None and len(boxes) == known.rows[table]:
+                        ids, boxes = _finite_rows(boxes)
+                    else:
+                        ids, boxes = envelopes(con, table, column, fid)
                     build_rtree(con, rtree, ids, boxes)
                 for name, body in _TRIGGERS.items():
                     con.execute(f"CREATE TRIGGER {_quote(rtree + '_' + name)} " + body.format(
@@ -466,16 +467,24 @@ def add_spatial_indexes(path: str, tables: Iterable[str] | None = None,
     return done
 
 
-def _known(con, table, fid, known):
+def _finite_rows(boxes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Ids (1, 2, ...) and envelopes of the rows of ``boxes`` that have an envelope
+    (an empty geometry's is NaN and stays out of the index)."""
+    keep = np.flatnonzero(np.isfinite(boxes).all(axis=1))
+    return keep.astype(np.int64) + 1, boxes[keep]
+
+
+def _recorded_rows(con, table, fid, known) -> bool:
+    """Whether ``known`` recorded the rows of ``table``: ids 1 to its row count."""
     if known is None or table not in known.rows:
-        return None, None
+        return False
     n = known.rows[table]
     # two statements: SQLite answers a lone min() or max() from the key, both at once
     # by reading the table
     lo = con.execute(f"SELECT min({_quote(fid)}) FROM {_quote(table)}").fetchone()[0]
     hi = con.execute(f"SELECT max({_quote(fid)}) FROM {_quote(table)}").fetchone()[0]
     if n and (lo != 1 or hi != n):
-        return None, None
+        return False
     # ids 1 to n are unique: n rows unless some were deleted (a count would read the table)
     count = None
     if con.execute("SELECT 1 FROM sqlite_master WHERE name = 'gpkg_ogr_contents'").fetchone():
@@ -484,13 +493,7 @@ def _known(con, table, fid, known):
         count = row[0] if row else None
     if count is None:
         count = con.execute(f"SELECT count(*) FROM {_quote(table)}").fetchone()[0]
-    if count != n:
-        return None, None
-    boxes = known.boxes(table)
-    if len(boxes) != n:
-        return None, None
-    keep = np.flatnonzero(np.isfinite(boxes).all(axis=1))
-    return keep.astype(np.int64) + 1, boxes[keep]
+    return count == n
 
 
 def _fid_column(con: sqlite3.Connection, table: str) -> str:
