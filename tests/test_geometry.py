@@ -608,9 +608,13 @@ def test_points_added_on_chords_do_not_change_the_curves(noise):
     geo = _curves(parts)
     split = geo.curves
     assert len(whole) == len(split) == 1
-    for col in ("radius_m", "radius_se_m", "circ_start_m", "circ_end_m", "s_start_m",
-                "s_end_m", "noise_m"):
+    for col in ("radius_m", "radius_se_m", "noise_m"):
         assert split[col].iloc[0] == pytest.approx(whole[col].iloc[0], rel=1e-6, abs=1e-6)
+    # the ends are placed from the tangents' fitted lines, which take every vertex: the
+    # point on the chord from the last tangent vertex into the transition lies within
+    # millimetres of the tangent's line and moves the ends by as much
+    for col in ("circ_start_m", "circ_end_m", "s_start_m", "s_end_m"):
+        assert split[col].iloc[0] == pytest.approx(whole[col].iloc[0], abs=0.01)
     # the run record counts the points left out: one per added point, but a point on the
     # chord from the last tangent vertex into the transition may stay (it lies within the
     # tolerance of the tangent's line there, so the tangent vertex is on a chord too)

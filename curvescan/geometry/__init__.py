@@ -29,6 +29,7 @@ from . import _kernels as kn
 from .resample import (chord_curvature, make_stations, resample_stations,
                        shape_vertex_classes)
 from .segment import find_runs
+from . import spirals as sp
 from .stations import Stations
 
 __all__ = ["PARAMETERS", "GeometryResult", "find_curves", "Stations", "chord_tolerance_for"]
@@ -273,7 +274,13 @@ def _batch(all_chains: Any, config: Any) -> GeometryResult:
                            tolerance_floor_m=config.circle_tolerance_m,
                            min_length_m=config.min_curve_length_m,
                            min_deflection_rad=0.5 * np.radians(config.min_deflection_deg))
-    curves = _assemble(prof, parts, first, last, half_det * spacing, base, chains, config)
+    # the tangents are fitted to every vertex: on a densified chain the collinear vertices
+    # of an exact tangent are left out of the shape, and its ends alone are no line fit
+    n_all = np.diff(all_chains.offsets)
+    all_gm = all_chains.measure + np.repeat(base, n_all)
+    every = (all_chains.coords, all_gm, all_chains.offsets)
+    curves = _assemble(prof, parts, first, last, half_det * spacing, base, chains, config,
+                       every)
     segments = piece_table(all_chains, curves)
     counts = {"input": int(len(all_chains.coords)),
               "left_out_on_chords": int(len(all_chains.coords) - len(chains.coords)),
@@ -524,7 +531,8 @@ def _flat_fragments(parts: dict, keep: np.ndarray) -> np.ndarray:
 MEET_ONLY_WHERE_RAMPS_DO = True
 
 
-def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.DataFrame:
+def _assemble(prof, parts, first, last, half_det_m, base, chains, config,
+              every=None) -> pd.DataFrame:
     """One curve per circular part: extents, transitions, deflection, fit quality."""
     se = np.hypot(_radius_se(parts, prof.sigma, config.circle_tolerance_m),
                   _shift_spread(prof, parts, config.circle_tolerance_m))
@@ -632,6 +640,12 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     meet = 0.5 * (circ_start[over + 1] + circ_end[over])
     circ_end[over] = np.maximum(meet, circ_start[over])
     circ_start[over + 1] = np.minimum(meet, circ_end[over + 1])
+    if TRANSITIONS_FROM_TANGENTS:
+        if every is None:
+            every = (prof.coords, prof.gm, prof.v_off)
+        start, end, circ_start, circ_end = _from_tangents(
+            prof, p, chain, gbase, start, end, circ_start, circ_end, se, lengths,
+            chain_prev, chain_next, every, hw, config)
     start = np.minimum(start, circ_start)
     end = np.maximum(end, circ_end)
     # deflection over the whole curve, from the curvature at the part's scale; the
@@ -695,6 +709,81 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config) -> pd.
     frame = resolve_overlaps(frame[ok.to_numpy()])
     frame.insert(0, "curve_id", np.arange(1, len(frame) + 1, dtype=np.int64))
     return frame
+
+
+#: Curve ends and transitions from the shift between the fitted tangents and circle
+#: (:mod:`curvescan.geometry.spirals`) where a tangent lies next to the curve.
+TRANSITIONS_FROM_TANGENTS = True
+
+
+def _from_tangents(prof, p, chain, gbase, start, end, circ_start, circ_end, se, lengths,
+                   chain_prev, chain_next, every, hw, config):
+    """Curve and circular-part ends from the tangents on either side (see
+    :mod:`curvescan.geometry.spirals`); ends without a usable tangent stay.
+
+    ``every``: coordinates, global measures and chain offsets of the vertices the tangents
+    are fitted to."""
+    t_xy, t_gm, t_off = every
+    first_v, last_v = t_off[chain], t_off[chain + 1] - 1
+    n = len(chain)
+    if n == 0:
+        return start, end, circ_start, circ_end
+    sigma = np.maximum(prof.sigma[chain], config.circle_tolerance_m)
+    sign = np.sign(p["sign"]).astype(float)
+    cx, cy, r = p["cx"], p["cy"], p["radius"]
+    prev_out = np.where(chain_prev, np.r_[0.0, end[:-1]], 0.0)
+    next_in = np.where(chain_next, np.r_[start[1:], 0.0], lengths)
+    cov = sp.circle_covariance(prof.coords, p["i0"].astype(np.int64),
+                               p["i1"].astype(np.int64), cx, cy, r, sigma)
+    # the tangent windows: from the neighbouring curve (or the chain's end) to a half
+    # detection window before the profile's end of the curve (the profile's ends lie
+    # inside long transitions), then before each transition found
+    in_hi = start - 0.5 * hw
+    out_lo = end + 0.5 * hw
+    res_in = res_out = None
+    for _round in range(sp.ROUNDS):
+        lo_in = np.where(chain_prev, np.r_[0.0, out_lo[:-1]], 0.0)
+        lo_in = np.maximum(lo_in, prev_out) if _round == 0 else lo_in
+        hi_out = np.where(chain_next, np.r_[in_hi[1:], 0.0], lengths)
+        hi_out = np.minimum(hi_out, next_in) if _round == 0 else hi_out
+        # only the stretch of tangent next to the curve: a long straight may bend gently
+        # far from it (flatter than any curve reported)
+        lo_in = np.maximum(lo_in, in_hi - sp.MAX_TANGENT_M)
+        hi_out = np.minimum(hi_out, out_lo + sp.MAX_TANGENT_M)
+        v0, v1 = sp.vertex_window(t_gm, lo_in + gbase, in_hi + gbase, first_v, last_v)
+        res_in = sp.tangent_ends(t_xy, t_gm, v0, v1, cx, cy, r, sign, sigma, cov, -1)
+        v0, v1 = sp.vertex_window(t_gm, out_lo + gbase, hi_out + gbase, first_v, last_v)
+        res_out = sp.tangent_ends(t_xy, t_gm, v0, v1, cx, cy, r, sign, sigma, cov, +1)
+        ui, li, oi = res_in[0], res_in[1], res_in[2] - gbase
+        uo, lo_, oo = res_out[0], res_out[1], res_out[2] - gbase
+        in_hi = np.where(ui, np.minimum(in_hi, oi - sp.MARGIN * li), in_hi)
+        out_lo = np.where(uo, np.maximum(out_lo, oo + sp.MARGIN * lo_), out_lo)
+    ui, li, oi, ii = res_in[0], res_in[1], res_in[2] - gbase, res_in[3] - gbase
+    uo, lo_, oo, io = res_out[0], res_out[1], res_out[2] - gbase, res_out[3] - gbase
+    # a circle through a handful of vertices is too loose to place the curve's ends, and
+    # one whose radius is known only to several per cent makes transitions out of its own
+    # error (its shift from the tangent moves with the radius)
+    firm = p["n"] >= sp.MIN_CIRCLE_VERTICES
+    loose = ~(se <= sp.MAX_REL_SE * r)
+    ui &= firm & ~(loose & (li > 0))
+    uo &= firm & ~(loose & (lo_ > 0))
+    # a curve keeps a circular part, starts after its neighbour ends and stays on its chain
+    new_cs = np.where(ui, ii, circ_start)
+    new_ce = np.where(uo, io, circ_end)
+    fits = new_cs < new_ce
+    ui &= fits & (oi >= np.where(chain_prev, np.r_[0.0, circ_end[:-1]], 0.0)) & (oi >= 0)
+    uo &= fits & (oo <= np.where(chain_next, np.r_[circ_start[1:], 0.0], lengths)) & (
+        oo <= lengths)
+    start = np.where(ui, oi, start)
+    circ_start = np.where(ui, ii, circ_start)
+    end = np.where(uo, oo, end)
+    circ_end = np.where(uo, io, circ_end)
+    # neighbours never overlap: a shared tangent too short for both transitions is split
+    over = np.flatnonzero(chain_next[:-1] & (start[1:] < end[:-1]))
+    mid = 0.5 * (start[over + 1] + end[over])
+    end[over] = np.maximum(mid, circ_end[over])
+    start[over + 1] = np.minimum(mid, circ_start[over + 1])
+    return start, end, circ_start, circ_end
 
 
 def _on_end_tangent(prof, p, ramp_end, touch, edge, tol, first_v, last_v):
