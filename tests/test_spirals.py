@@ -159,3 +159,18 @@ def test_scan_and_cli_report_the_transitions(tmp_path):
     assert curves["transition_out_m"].iloc[0] == pytest.approx(70.0, abs=0.5)
     assert curves["length_m"].iloc[0] == pytest.approx(
         truth["s_end_m"] - truth["s_start_m"], abs=1.0)
+
+
+def test_a_reversed_line_gets_the_same_ends_mirrored():
+    """The tangent fits do not depend on the digitised direction (GPS-like vertices)."""
+    al = simple_curve(220.0, 55.0, spiral_m=60.0, tangent_m=250.0)
+    for seed in range(3):
+        xy, _ = vertices(al, np.random.default_rng(seed), jitter=(1.0, 3.0), noise_m=0.3)
+        total = float(np.hypot(*np.diff(xy, axis=0).T).sum())
+        a = _curves([xy]).curves.iloc[0]
+        b = _curves([xy[::-1]]).curves.iloc[0]
+        assert total - b["s_end_m"] == pytest.approx(a["s_start_m"], abs=0.05)
+        assert total - b["s_start_m"] == pytest.approx(a["s_end_m"], abs=0.05)
+        assert b["direction"] != a["direction"]
+        # and the transitions were placed (the profile alone found about a fifth of them)
+        assert a["transition_in_m"] > 40.0 and b["transition_out_m"] > 40.0
