@@ -49,6 +49,8 @@ ROUNDS = 3
 MARGIN = 0.1
 #: A tangent whose vertices scatter more than this many times the noise is not straight.
 MAX_SCATTER = 2.0
+#: Standard deviations of the residual variance's chi-square spread a straight may show.
+SCATTER_Z = 3.0
 
 
 def shift_of(length: np.ndarray, radius: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -151,7 +153,12 @@ def tangent_ends(coords, gm, v_lo, v_hi, cx, cy, radius, sign, sigma, circle_cov
         return usable, out_len, outer, inner, shift, shift_se
     mx, my, ux, uy, rms, stt, mmean, slope, cnt = _line_fits(coords, gm, v_lo[k], v_hi[k])
     span = gm[v_hi[k] - 1] - gm[v_lo[k]]
-    ok = (span >= MIN_TANGENT_M) & (rms <= MAX_SCATTER * np.maximum(sigma[k], 1e-3) + 1e-3)
+    # straight: the residual variance no more than its chi-square spread allows above the
+    # noise (SCATTER_Z standard deviations of s^2 / sigma^2 with n - 2 degrees of freedom),
+    # and never above MAX_SCATTER times the noise
+    dof = np.maximum(cnt - 2.0, 1.0)
+    limit = np.minimum(np.sqrt(1.0 + SCATTER_Z * np.sqrt(2.0 / dof)), MAX_SCATTER)
+    ok = (span >= MIN_TANGENT_M) & (rms <= limit * np.maximum(sigma[k], 1e-3) + 1e-3)
     # the centre's distance from the line, on the side the curve turns to
     rel_x, rel_y = cx[k] - mx, cy[k] - my
     nx, ny = -uy, ux
