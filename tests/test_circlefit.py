@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import least_squares
 
-from curvescan.geometry.circlefit import fit_circles, hyper_fit
+from curvescan.geometry.circlefit import circle_covariance, fit_circles, hyper_fit
 
 
 def test_four_points_unit_circle():
@@ -121,3 +121,22 @@ def test_hyper_fit_solves_the_generalised_eigenproblem():
         cx, cy = -A[1] / (2 * A[0]) + x.mean(), -A[2] / (2 * A[0]) + y.mean()
         ours = hyper_fit(x, y, np.zeros(n, dtype=int), 1)
         np.testing.assert_allclose([ours[0][0], ours[1][0]], [cx, cy], rtol=0, atol=1e-6 * r)
+
+
+def test_circle_covariance_matches_scipy_least_squares_jacobian():
+    """sigma^2 (J^T J)^-1 at the fitted circle, against the Jacobian that
+    scipy.optimize.least_squares reports for the same orthogonal-distance problem."""
+    rng = np.random.default_rng(5)
+    t = np.linspace(0.2, 1.4, 15)
+    x = 300.0 * np.cos(t) + rng.normal(0, 0.2, t.size)
+    y = 300.0 * np.sin(t) + rng.normal(0, 0.2, t.size)
+    sol = least_squares(lambda q: np.hypot(x - q[0], y - q[1]) - q[2], [10.0, -5.0, 290.0])
+    cx, cy, r = sol.x
+    cov = circle_covariance(x, y, np.zeros(t.size, dtype=np.int64), 1, np.array([cx]),
+                            np.array([cy]), np.array([r]), np.array([0.2]))
+    want = 0.2 ** 2 * np.linalg.inv(sol.jac.T @ sol.jac)
+    np.testing.assert_allclose(cov[0], want, rtol=1e-4)
+    # fewer than three points: no covariance
+    two = circle_covariance(x[:2], y[:2], np.zeros(2, dtype=np.int64), 1, np.array([cx]),
+                            np.array([cy]), np.array([r]), np.array([0.2]))
+    assert np.isinf(two).all()

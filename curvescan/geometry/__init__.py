@@ -22,7 +22,7 @@ from .circular import (
     cumulative_turn,
     half_level_span,
 )
-from .circlefit import fit_circles
+from .circlefit import circle_covariance, fit_circles
 from .noise import local_vertex_noise, vertex_noise
 from .pieces import piece_table, resolve_overlaps
 from . import _kernels as kn
@@ -532,8 +532,11 @@ MEET_ONLY_WHERE_RAMPS_DO = True
 
 
 def _assemble(prof, parts, first, last, half_det_m, base, chains, config,
-              every=None) -> pd.DataFrame:
-    """One curve per circular part: extents, transitions, deflection, fit quality."""
+              every) -> pd.DataFrame:
+    """One curve per circular part: extents, transitions, deflection, fit quality.
+
+    ``every``: coordinates, global measures and chain offsets of all the chains' vertices
+    (the tangents beside the curves are fitted to them)."""
     se = np.hypot(_radius_se(parts, prof.sigma, config.circle_tolerance_m),
                   _shift_spread(prof, parts, config.circle_tolerance_m))
     radius = parts["radius"]
@@ -641,8 +644,6 @@ def _assemble(prof, parts, first, last, half_det_m, base, chains, config,
     circ_end[over] = np.maximum(meet, circ_start[over])
     circ_start[over + 1] = np.minimum(meet, circ_end[over + 1])
     if TRANSITIONS_FROM_TANGENTS:
-        if every is None:
-            every = (prof.coords, prof.gm, prof.v_off)
         start, end, circ_start, circ_end = _from_tangents(
             prof, p, chain, gbase, start, end, circ_start, circ_end, se, lengths,
             chain_prev, chain_next, every, hw, config)
@@ -733,8 +734,9 @@ def _from_tangents(prof, p, chain, gbase, start, end, circ_start, circ_end, se, 
     cx, cy, r = p["cx"], p["cy"], p["radius"]
     prev_out = np.where(chain_prev, np.r_[0.0, end[:-1]], 0.0)
     next_in = np.where(chain_next, np.r_[start[1:], 0.0], lengths)
-    cov = sp.circle_covariance(prof.coords, p["i0"].astype(np.int64),
-                               p["i1"].astype(np.int64), cx, cy, r, sigma)
+    i0 = p["i0"].astype(np.int64)
+    idx, grp = expand(i0, p["i1"].astype(np.int64) - i0)
+    cov = circle_covariance(prof.coords[idx, 0], prof.coords[idx, 1], grp, n, cx, cy, r, sigma)
     # the tangent windows: from the neighbouring curve (or the chain's end) to a half
     # detection window before the profile's end of the curve (the profile's ends lie
     # inside long transitions), then before each transition found

@@ -221,6 +221,22 @@ def geometric_fit(x, y, group, n_groups, cx0, cy0, r0, iterations: int = 20) -> 
                      radius_sd_unit=unit)
 
 
+def circle_covariance(x: np.ndarray, y: np.ndarray, group: np.ndarray, n_groups: int,
+                      cx: np.ndarray, cy: np.ndarray, r: np.ndarray,
+                      sigma: np.ndarray) -> np.ndarray:
+    """Covariance ``sigma^2 (J^T J)^-1`` of ``(cx, cy, r)`` of the circles of each group
+    (shape ``(n_groups, 3, 3)``), for points with noise ``sigma`` per group; infinite
+    where a group has fewer than three points or a singular geometry."""
+    jtj, _ = _normal(x, y, group, n_groups, cx, cy, r)
+    n = np.bincount(group, minlength=n_groups)
+    cov = np.full((n_groups, 3, 3), np.inf)
+    det = np.linalg.det(jtj)
+    ok = (n >= 3) & np.isfinite(det) & (np.abs(det) > 1e-12)
+    if ok.any():
+        cov[ok] = np.linalg.inv(jtj[ok]) * (sigma[ok] ** 2)[:, None, None]
+    return cov
+
+
 def _inverse_22(M: np.ndarray) -> np.ndarray:
     """Element (2, 2) of the inverse of each symmetric 3x3 matrix ``M`` (cofactor over
     determinant; the pseudo-inverse where the matrix is near singular)."""

@@ -26,7 +26,7 @@ from scipy.special import fresnel
 
 from ._ragged import expand, find
 
-__all__ = ["shift_of", "length_for_shift", "tangent_ends", "circle_covariance", "vertex_window"]
+__all__ = ["shift_of", "length_for_shift", "tangent_ends", "vertex_window"]
 
 #: Fewest vertices on a tangent before it is used.
 MIN_TANGENT_VERTICES = 3
@@ -194,26 +194,3 @@ def vertex_window(gm, lo_m, hi_m, first_v, last_v):
     v_lo = np.maximum(find(gm, lo_m, side="left"), first_v)
     v_hi = np.minimum(find(gm, hi_m, side="right"), last_v + 1)
     return v_lo, np.maximum(v_hi, v_lo)
-
-
-def circle_covariance(coords, v_lo, v_hi, cx, cy, radius, sigma):
-    """Covariance of ``(cx, cy, r)`` of circles fitted to the vertices ``v_lo[g] ..
-    v_hi[g]-1``, from the geometric fit's Jacobian and vertex noise ``sigma`` (infinite
-    where fewer than three vertices or a singular geometry)."""
-    n = len(v_lo)
-    idx, grp = expand(v_lo, v_hi - v_lo)
-    dx, dy = coords[idx, 0] - cx[grp], coords[idx, 1] - cy[grp]
-    d = np.maximum(np.hypot(dx, dy), 1e-12)
-    ux, uy = dx / d, dy / d
-    jtj = np.empty((n, 3, 3))
-    cols = (ux, uy, np.ones_like(ux))
-    for i in range(3):
-        for j in range(i, 3):
-            v = np.bincount(grp, cols[i] * cols[j], minlength=n)
-            jtj[:, i, j] = jtj[:, j, i] = v
-    cov = np.full((n, 3, 3), np.inf)
-    det = np.linalg.det(jtj)
-    ok = (v_hi - v_lo >= 3) & np.isfinite(det) & (np.abs(det) > 1e-12)
-    if ok.any():
-        cov[ok] = np.linalg.inv(jtj[ok]) * (sigma[ok] ** 2)[:, None, None]
-    return cov
